@@ -1,0 +1,3 @@
+"""echoreo.adapters: leader and follower interfaces and their implementations."""
+
+__all__: list[str] = []
