@@ -1,3 +1,31 @@
-"""echoreo.adapters: leader and follower interfaces and their implementations."""
+"""echoreo.adapters: leader and follower interfaces and their implementations.
 
-__all__: list[str] = []
+Public names are listed in ``_EXPORTS`` (name -> defining submodule) and
+imported on first use, so importing the package stays cheap and each part
+registers its own names with a one-line entry.
+"""
+
+from __future__ import annotations
+
+import importlib
+from typing import Any
+
+#: public name -> submodule of this package that defines it
+_EXPORTS: dict[str, str] = {
+}
+
+__all__ = sorted(_EXPORTS)
+
+
+def __getattr__(name: str) -> Any:
+    try:
+        module = _EXPORTS[name]
+    except KeyError:
+        raise AttributeError(f"module {__name__!r} has no attribute {name!r}") from None
+    value = getattr(importlib.import_module(f"{__name__}.{module}"), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(_EXPORTS))
