@@ -12,6 +12,16 @@ from typing import Any
 
 #: public name -> submodule of this package that defines it
 _EXPORTS: dict[str, str] = {
+    "Clock": "base",
+    "ClockMap": "base",
+    "Command": "base",
+    "FollowerSource": "base",
+    "Leader": "base",
+    "LeaderHello": "base",
+    "LeaderState": "base",
+    "SampleBatch": "base",
+    "StreamHealth": "base",
+    "StreamInfo": "base",
 }
 
 __all__ = sorted(_EXPORTS)
