@@ -14,6 +14,12 @@ from typing import Any
 
 #: public name -> submodule of this package that defines it
 _EXPORTS: dict[str, str] = {
+    "icc": "reliability",
+    "mean_squares": "reliability",
+    "bootstrap_ci": "cohort",
+    "participant_summary": "cohort",
+    "grade_reliability": "cohort",
+    "flagged_participants": "cohort",
 }
 
 __all__ = sorted(_EXPORTS)
