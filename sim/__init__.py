@@ -14,6 +14,10 @@ from typing import Any
 
 #: public name -> submodule of this package that defines it
 _EXPORTS: dict[str, str] = {
+    "Robot": "robot",
+    "load_robot": "robot",
+    "parse_robot": "robot",
+    "shipped_robots": "robot",
 }
 
 __all__ = sorted(_EXPORTS)
