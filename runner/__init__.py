@@ -12,6 +12,13 @@ from typing import Any
 
 #: public name -> submodule of this package that defines it
 _EXPORTS: dict[str, str] = {
+    "LatenessStats": "clock",
+    "Recorder": "recorder",
+    "RecorderStats": "recorder",
+    "Scheduler": "clock",
+    "SessionClock": "clock",
+    "Tick": "clock",
+    "VirtualClock": "clock",
 }
 
 __all__ = sorted(_EXPORTS)
