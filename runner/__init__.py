@@ -12,6 +12,12 @@ from typing import Any
 
 #: public name -> submodule of this package that defines it
 _EXPORTS: dict[str, str] = {
+    "Choreography": "choreography",
+    "Move": "choreography",
+    "Step": "choreography",
+    "Timeline": "timeline",
+    "load_choreography": "choreography",
+    "ramp": "ramp",
     "LatenessStats": "clock",
     "Recorder": "recorder",
     "RecorderStats": "recorder",

@@ -1,0 +1,54 @@
+"""Choreography loading and compiling on the shipped robot and example files."""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from echoreo.choreographies import DATA_DIR
+from echoreo.runner import Timeline, load_choreography
+from echoreo.sim import load_robot
+
+EXAMPLES = sorted(DATA_DIR.glob("*.yaml"))
+
+
+@pytest.fixture(scope="module")
+def robot():
+    return load_robot("torso-e1")
+
+
+@pytest.mark.parametrize("path", EXAMPLES, ids=[p.stem for p in EXAMPLES])
+def test_shipped_examples_compile_within_limits(path, robot):
+    """Every shipped choreography compiles at 50 Hz with every sample inside the
+    robot's limits (limits from choreographies/robots/torso-e1.yaml) and lasts <= 60 s."""
+    tl = load_choreography(path).compile()
+    assert isinstance(tl, Timeline)
+    assert tl.q.shape == (tl.t.size, len(robot.joint_names))
+    assert np.all(tl.q >= robot.lower - 1e-12) and np.all(tl.q <= robot.upper + 1e-12)
+    assert np.all(np.abs(np.diff(tl.q, axis=0)) * 50 <= robot.max_velocity * (1 + 1e-9))
+    assert 0 < tl.duration <= 60.0
+    assert list(tl.spans.columns) == ["step", "move", "repetition", "kind", "t_start", "t_end"]
+    assert list(tl.cues.columns) == ["t", "text"]
+
+
+def test_spans_one_row_per_repetition():
+    """The right-arm example: 4 raises of 3.2 s and 4 curls of 2.4 s (the values written in
+    choreographies/warmup-right-arm.yaml), rests with repetition 0, spans contiguous."""
+    tl = load_choreography(DATA_DIR / "warmup-right-arm.yaml").compile()
+    moves = tl.spans[tl.spans["kind"] == "move"]
+    assert moves.groupby("move")["repetition"].apply(list).to_dict() == {
+        "raise_right_forward": [1, 2, 3, 4], "curl_right": [1, 2, 3, 4]}
+    durations = (moves["t_end"] - moves["t_start"]).round(9)
+    assert sorted(set(durations)) == [2.4, 3.2]
+    assert (tl.spans.loc[tl.spans["kind"] == "rest", "repetition"] == 0).all()
+    np.testing.assert_allclose(tl.spans["t_start"].to_numpy()[1:],
+                               tl.spans["t_end"].to_numpy()[:-1])
+    assert tl.rep_windows().shape == (8, 2)
+    assert isinstance(tl.spans, pd.DataFrame)
+
+
+def test_timeline_is_read_only():
+    tl = load_choreography(DATA_DIR / "warmup-right-arm.yaml").compile()
+    with pytest.raises(ValueError):
+        tl.q[0, 0] = 1.0
