@@ -1,0 +1,63 @@
+"""``echoreo sessions FOLDER`` in a real subprocess, on real session files."""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+
+import numpy as np
+
+from echoreo.runner.recorder import Recorder
+
+CRASHING_CHILD = r"""
+import os, sys
+import numpy as np
+from echoreo.runner.recorder import Recorder
+rec = Recorder(sys.argv[1], {"study": "pilot", "participant": "P02"})
+rec.add_stream({"name": "head_pose", "kind": "head_pose", "channels": ["yaw", "pitch", "roll"],
+                "units": ["rad"] * 3, "rate_hz": 30.0})
+t = (np.arange(90) * 1e9 / 30).astype(np.int64)
+rec.write("head_pose", t, t, np.arange(90), np.zeros((90, 3)))
+rec.flush()
+os._exit(0)   # dies without close(): the file stays 'running'
+"""
+
+
+def _cli(*args, env_extra=None):
+    env = {**os.environ, "COLUMNS": "240", "NO_COLOR": "1", **(env_extra or {})}
+    return subprocess.run([sys.executable, "-m", "echoreo.runner.cli", *args],
+                          capture_output=True, text=True, env=env, timeout=60)
+
+
+def test_lists_complete_interrupted_and_unreadable(tmp_path):
+    """Each file is one row with its state; stream health counts samples and gaps."""
+    rec = Recorder(tmp_path / "P01.sqlite", {"study": "pilot", "participant": "P01",
+                                             "choreographies": {"greeting": "name: greeting"}})
+    rec.add_stream({"name": "right_wrist_imu", "kind": "imu", "channels": ["acc_x"],
+                    "units": ["m/s^2"], "rate_hz": 100.0})
+    # 100 Hz for 2 s with one 0.5 s hole: one gap at the default threshold of 3 periods
+    t = np.arange(200) * 10_000_000
+    t = np.concatenate([t[:100], t[150:]])
+    rec.write("right_wrist_imu", t, t, np.arange(t.size), np.zeros((t.size, 1)))
+    rec.close()
+    crashed = subprocess.run([sys.executable, "-c", CRASHING_CHILD,
+                              str(tmp_path / "P02.sqlite")], timeout=60)
+    assert crashed.returncode == 0
+    (tmp_path / "notes.sqlite").write_text("not a database")
+
+    out = _cli("sessions", str(tmp_path))
+    assert out.returncode == 0, out.stderr
+    text = out.stdout
+    assert "P01.sqlite" in text and "P02.sqlite" in text and "notes.sqlite" in text
+    assert "complete" in text and "interrupted" in text and "unreadable" in text
+    assert "greeting" in text
+    assert "right_wrist_imu: 150 samples" in text and "1 gap" in text
+    assert "head_pose: 90 samples, 30.0/30 Hz, no gaps" in text
+    assert "1 complete, 1 interrupted, 1 unreadable" in text
+
+
+def test_missing_folder_exits_2_without_traceback(tmp_path):
+    out = _cli("sessions", str(tmp_path / "nope"))
+    assert out.returncode == 2
+    assert "no such folder" in out.stderr and "Traceback" not in out.stderr
