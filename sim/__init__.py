@@ -18,6 +18,14 @@ _EXPORTS: dict[str, str] = {
     "load_robot": "robot",
     "parse_robot": "robot",
     "shipped_robots": "robot",
+    "HeadPose": "sensors",
+    "ImuNoise": "sensors",
+    "STANDARD_GRAVITY": "sensors",
+    "head_orientation": "sensors",
+    "imu": "sensors",
+    "imus": "sensors",
+    "joint_derivatives": "sensors",
+    "LeaderSim": "leader",
 }
 
 __all__ = sorted(_EXPORTS)
