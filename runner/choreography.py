@@ -354,6 +354,7 @@ class Choreography:
                     problems.append(self._limit_problem(
                         kind, j, float(values[i, j]), float(sample_t[kind][i]),
                         int(sample_span[kind][i]), spans, steps, rate, timeline))
+        problems.sort(key=lambda p: (p.line or 0, p.column or 0))
         return problems
 
     def _limit_problem(self, kind: str, j: int, value: float, t: float, span_index: int,
