@@ -15,6 +15,9 @@ from typing import Any
 #: public name -> submodule of this package that defines it
 _EXPORTS: dict[str, str] = {
     "icc": "reliability",
+    "ReportData": "report",
+    "build_report": "report",
+    "write_report": "report",
     "mean_squares": "reliability",
     "bootstrap_ci": "cohort",
     "participant_summary": "cohort",
