@@ -14,6 +14,19 @@ from typing import Any
 
 #: public name -> submodule of this package that defines it
 _EXPORTS: dict[str, str] = {
+    "human_model": "human",
+    "human_model_yaml": "human",
+    "segment_lengths": "human",
+    "SEGMENT_FRACTIONS": "human",
+    "RANGE_OF_MOTION_DEG": "human",
+    "ImitationProfile": "participant",
+    "PROFILES": "participant",
+    "DEGRADATIONS": "participant",
+    "degrade": "participant",
+    "vary_profile": "participant",
+    "SimStream": "participant",
+    "ParticipantRecording": "participant",
+    "simulate_participant": "participant",
     "Robot": "robot",
     "load_robot": "robot",
     "parse_robot": "robot",
