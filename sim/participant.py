@@ -182,9 +182,11 @@ class ImitationProfile:
     fatigue_per_rep : float
         Fraction of arm amplitude lost per repetition: repetition ``k``
         (0-based, in time order) is made with amplitude ``(1 - f) ** k``.
-    skip_probability : float
-        Probability that a repetition is skipped (the participant stays at
-        rest through it); drawn independently for each repetition.
+    skip_fraction : float
+        Fraction of the repetitions that are skipped (the participant stays
+        at rest through them): the ``round(skip_fraction * k)`` repetitions
+        with the smallest of ``k`` uniform random keys, so the count is exact
+        and a higher fraction with the same seed skips a superset.
     skip_reps : tuple of int
         Repetitions (indices into ``rep_windows``) skipped in any case.
     head_follow : float
@@ -207,7 +209,7 @@ class ImitationProfile:
     tremor_hz: float = 9.0
     tremor_bandwidth_hz: float = 1.5
     fatigue_per_rep: float = 0.0
-    skip_probability: float = 0.0
+    skip_fraction: float = 0.0
     skip_reps: tuple[int, ...] = field(default_factory=tuple)
     head_follow: float = 0.0
     mode_error: float = 0.0
@@ -222,7 +224,7 @@ class ImitationProfile:
             if not np.isfinite(v) or v < 0:
                 problems.append(Problem(f"ImitationProfile.{name} is {v!r}; it must be "
                                         "a finite number >= 0"))
-        for name in ("fatigue_per_rep", "skip_probability", "mode_error"):
+        for name in ("fatigue_per_rep", "skip_fraction", "mode_error"):
             v = getattr(self, name)
             if not (0.0 <= v <= 1.0):
                 problems.append(Problem(f"ImitationProfile.{name} is {v!r}; it must lie "
@@ -253,7 +255,7 @@ PROFILES: dict[str, ImitationProfile] = {
     "wrong_mirror": ImitationProfile(mode_error=1.0),
     "weak_left_arm": ImitationProfile(gain_left=0.45),
     "head_follows": ImitationProfile(head_follow=0.4),
-    "skipper": ImitationProfile(skip_probability=0.25, skip_reps=(2,)),
+    "skipper": ImitationProfile(skip_fraction=0.25, skip_reps=(2,)),
     "tiring": ImitationProfile(fatigue_per_rep=0.06),
 }
 
@@ -263,9 +265,9 @@ DEGRADATIONS: dict[str, tuple[str, tuple[float, ...]]] = {
     "lag": ("seconds added to lag_s", (0.0, 0.2, 0.4, 0.6, 0.8)),
     "gain": ("fraction of amplitude lost on both arms", (0.0, 0.15, 0.3, 0.45, 0.6)),
     "noise": ("rad added to noise_rad", (0.0, 0.03, 0.06, 0.09, 0.12)),
-    "tremor": ("rad added to tremor_rad", (0.0, 0.005, 0.01, 0.015, 0.02)),
+    "tremor": ("rad added to tremor_rad", (0.0, 0.0025, 0.005, 0.0075, 0.01)),
     "fatigue": ("fatigue_per_rep", (0.0, 0.03, 0.06, 0.09, 0.12)),
-    "skip": ("skip_probability", (0.0, 0.2, 0.4, 0.6, 0.8)),
+    "skip": ("skip_fraction", (0.0, 0.2, 0.4, 0.6, 0.8)),
     "wrong_mirror": ("mode_error", (0.0, 0.25, 0.5, 0.75, 1.0)),
     "weak_arm": ("fraction of amplitude lost on the left arm", (0.0, 0.15, 0.3, 0.45, 0.6)),
     "head": ("head_follow gain", (0.0, 0.1, 0.2, 0.3, 0.4)),
@@ -308,7 +310,7 @@ def degrade(base: ImitationProfile, kind: str, level: float) -> ImitationProfile
         "noise": {"noise_rad": b.noise_rad + x},
         "tremor": {"tremor_rad": b.tremor_rad + x},
         "fatigue": {"fatigue_per_rep": x},
-        "skip": {"skip_probability": x},
+        "skip": {"skip_fraction": x},
         "wrong_mirror": {"mode_error": x},
         "weak_arm": {"gain_left": b.gain_left * (1 - x)},
         "head": {"head_follow": x},
@@ -553,7 +555,8 @@ def simulate_participant(
     else:
         fatigue_t = np.ones(n_int)
     u = r_skip.random(k)
-    skipped = u < p.skip_probability
+    skipped = np.zeros(k, dtype=bool)
+    skipped[np.argsort(u, kind="stable")[: round(p.skip_fraction * k)]] = True
     skipped[[s for s in p.skip_reps if 0 <= s < k]] = True
     skip_win = np.column_stack([windows[:, 0], windows[:, 1] + rep_lag])[skipped]
     presence = window_presence(tg, skip_win, _SKIP_RAMP_S)
@@ -684,15 +687,42 @@ def _imu_with_noise(imu_fn: Any, human: Any, ts: NDArray, qs: NDArray, site: str
     from echoreo.sim.sensors import ImuNoise
 
     b = rng.standard_normal(6)
+    acc, gyro = _chunked_imu(imu_fn, human, ts, qs, site)
     if not on:
-        return imu_fn(human, ts, qs, site)
+        return acc, gyro
     noise = ImuNoise(
         acc_noise_density=IMU_NOISE["acc_density"],
         gyro_noise_density=IMU_NOISE["gyro_density"],
         acc_bias=tuple(b[:3] * IMU_NOISE["acc_bias"]),
         gyro_bias=tuple(b[3:] * IMU_NOISE["gyro_bias"]),
     )
-    return imu_fn(human, ts, qs, site, noise=noise, rng=rng)
+    return noise.apply(ts, acc, gyro, rng)
+
+
+# Long recordings go through the IMU model in blocks, so that the per-link
+# kinematics arrays stay small. Each block carries a margin of samples on
+# both sides that is discarded: the spline derivatives at a sample depend on
+# samples k steps away only through a factor decaying like (2 - sqrt 3)^k
+# ~ 0.27^k (de Boor 1978, ch. IV), so 64 samples of margin leave the result
+# unchanged to rounding.
+_IMU_BLOCK = 6000
+_IMU_MARGIN = 64
+
+
+def _chunked_imu(imu_fn: Any, human: Any, ts: NDArray, qs: NDArray,
+                 site: str) -> tuple[NDArray, NDArray]:
+    n = len(ts)
+    if n <= _IMU_BLOCK + 2 * _IMU_MARGIN:
+        return imu_fn(human, ts, qs, site)
+    acc = np.empty((n, 3))
+    gyro = np.empty((n, 3))
+    for a in range(0, n, _IMU_BLOCK):
+        b = min(a + _IMU_BLOCK, n)
+        lo, hi = max(a - _IMU_MARGIN, 0), min(b + _IMU_MARGIN, n)
+        ac, gy = imu_fn(human, ts[lo:hi], qs[lo:hi], site)
+        acc[a:b] = ac[a - lo : a - lo + (b - a)]
+        gyro[a:b] = gy[a - lo : a - lo + (b - a)]
+    return acc, gyro
 
 
 #: IMU noise of a consumer-grade MEMS device (typical data-sheet magnitudes,
