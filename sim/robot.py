@@ -30,6 +30,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from echoreo.errors import InputError, Problem, RobotError
+from echoreo.sim import _kinematics as _k
 from echoreo.sim.rotations import matrix_from_rpy
 from echoreo.yamlload import LDict, Loc, load_yaml
 
@@ -278,48 +279,31 @@ class Robot:
             Keyed by link name; ``omega``, ``alpha``, ``acc`` are empty dicts
             when ``qd`` is not given.
         """
-        q = self._as_q(q)
+        q, qd, qdd = self._check_motion(q, qd, qdd)
         n = q.shape[0]
-        motion = qd is not None
-        if motion:
+        R, p, w, al, ac = _k.recursion(self._joints, self._order, self.base_link, q, qd, qdd)
+        links = self.link_names
+        if qd is None:
+            return Kinematics({k: _k.stack_mat(R[k], n) for k in links},
+                              {k: _k.stack_vec(p[k], n) for k in links}, {}, {}, {})
+        return Kinematics({k: _k.stack_mat(R[k], n) for k in links},
+                          {k: _k.stack_vec(p[k], n) for k in links},
+                          {k: _k.stack_vec(w[k], n) for k in links},
+                          {k: _k.stack_vec(al[k], n) for k in links},
+                          {k: _k.stack_vec(ac[k], n) for k in links})
+
+    def _check_motion(self, q: ArrayLike, qd: ArrayLike | None, qdd: ArrayLike | None):
+        q = self._as_q(q)
+        if qd is not None:
             qd = self._as_q(qd, "qd")
             qdd = self._as_q(qdd if qdd is not None else np.zeros_like(qd), "qdd")
-            if qd.shape[0] != n or qdd.shape[0] != n:
+            if qd.shape[0] != q.shape[0] or qdd.shape[0] != q.shape[0]:
                 raise ValueError("q, qd and qdd must have the same number of samples")
-        b = self.base_link
-        R = {b: np.broadcast_to(np.eye(3), (n, 3, 3))}
-        p = {b: np.zeros((n, 3))}
-        om: dict = {}
-        al: dict = {}
-        ac: dict = {}
-        if motion:
-            om[b] = np.zeros((n, 3))
-            al[b] = np.zeros((n, 3))
-            ac[b] = np.zeros((n, 3))
-        for i in self._order:
-            j = self._joints[i]
-            P, C = j["parent"], j["child"]
-            th = q[:, i]
-            s, c = np.sin(th), np.cos(th)
-            # R_o Rot(a, th) = R_o + sin(th) R_o K + (1 - cos th) R_o K^2  (Rodrigues)
-            local = (j["Ro"] + s[:, None, None] * j["RoK"]
-                     + (1.0 - c)[:, None, None] * j["RoK2"])
-            RP = R[P]
-            if P == b:
-                RC = local
-                r = np.broadcast_to(j["po"], (n, 3))
-            else:
-                RC = RP @ local
-                r = RP @ j["po"]
-            R[C] = RC
-            p[C] = p[P] + r
-            if motion:
-                u = RC @ j["axis"]
-                wP = om[P]
-                om[C] = wP + qd[:, i, None] * u
-                al[C] = al[P] + qdd[:, i, None] * u + qd[:, i, None] * np.cross(wP, u)
-                ac[C] = ac[P] + np.cross(al[P], r) + np.cross(wP, np.cross(wP, r))
-        return Kinematics(R, p, om, al, ac)
+        return q, qd, qdd
+
+    def _components(self, q: NDArray, qd: NDArray | None = None, qdd: NDArray | None = None):
+        """Component form of the recursion (see ``_kinematics``); arguments checked."""
+        return _k.recursion(self._joints, self._order, self.base_link, q, qd, qdd)
 
     def site_kinematics(self, kin: Kinematics, site: str) -> tuple:
         """Pose and motion of one site from the kinematics of its link.
@@ -387,11 +371,26 @@ class Robot:
         dict of str to ndarray, shape (n, 4, 4)
             Homogeneous base-from-site transforms; translations in m.
         """
-        kin = self.kinematics(q)
-        out = {}
-        for site in self.site_names if sites is None else sites:
-            R, p, _, _ = self.site_kinematics(kin, site)
-            out[site] = _homogeneous(R, p)
+        q = self._as_q(q)
+        n = q.shape[0]
+        wanted = self.site_names if sites is None else tuple(sites)
+        specs = [self._site(site) for site in wanted]
+        out = {site: np.zeros((n, 4, 4)) for site in wanted}
+        for T in out.values():
+            T[:, 3, 3] = 1.0
+        # chunks of samples keep the component arrays in cache (same result)
+        for start in range(0, n, _k.CHUNK):
+            sl = slice(start, min(start + _k.CHUNK, n))
+            R, p, _, _, _ = self._components(q[sl])
+            for site, spec in zip(wanted, specs, strict=True):
+                L = spec["link"]
+                T = out[site]
+                Rs = _k.matmul(R[L], spec["c_R"])
+                ps = _k.vadd(p[L], _k.matvec(R[L], spec["c_p"]))
+                for k in range(9):
+                    T[sl, k // 3, k % 3] = Rs[k]
+                for k in range(3):
+                    T[sl, k, 3] = ps[k]
         return out
 
 
@@ -717,6 +716,8 @@ def _build(data: Any, text: str, source: str, file: str) -> Robot:
             Ro = matrix_from_rpy(rpy)
             K = np.array([[0, -a[2], a[1]], [a[2], 0, -a[0]], [-a[1], a[0], 0]])
             j.update(axis=a, po=xyz, Ro=Ro, RoK=Ro @ K, RoK2=Ro @ K @ K, **lim)
+            j.update(c_axis=_k.consts(a), c_po=_k.consts(xyz), c_Ro=_k.consts(Ro),
+                     c_RoK=_k.consts(Ro @ K), c_RoK2=_k.consts(Ro @ K @ K))
             joints.append(j)
         else:
             j["bad"] = True
@@ -767,7 +768,9 @@ def _build(data: Any, text: str, source: str, file: str) -> Robot:
         xyz = ck.vector(spec, "xyz", where, scale["length"], (0, 0, 0))
         rpy = ck.vector(spec, "rpy", where, ang, (0, 0, 0))
         if link is not None and xyz is not None and rpy is not None:
-            sites[sname] = {"link": link, "p": xyz, "R": matrix_from_rpy(rpy)}
+            Rs = matrix_from_rpy(rpy)
+            sites[sname] = {"link": link, "p": xyz, "R": Rs, "c_p": _k.consts(xyz),
+                            "c_R": _k.consts(Rs)}
     if smap is not None:
         missing = [s for s in REQUIRED_SITES if s not in smap]
         if missing:

@@ -49,6 +49,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy.interpolate import CubicSpline
 
+from echoreo.sim import _kinematics as _k
 from echoreo.sim.robot import Robot
 from echoreo.sim.rotations import euler_zyx_from_matrices, quaternions_from_matrices
 
@@ -64,7 +65,6 @@ __all__ = [
 
 #: Standard acceleration of gravity, m/s^2 (3rd CGPM, 1901).
 STANDARD_GRAVITY = 9.80665
-_G = np.array([0.0, 0.0, -STANDARD_GRAVITY])
 
 
 @dataclass(frozen=True)
@@ -241,19 +241,34 @@ def imus(robot: Robot, t: ArrayLike, q: ArrayLike, sites: list[str] | tuple[str,
         Each ndarray, shape (n, 3), m/s^2 and rad/s, in the site frame.
     """
     q = robot._as_q(q)
-    t = _check_t(t, q.shape[0])
+    n = q.shape[0]
+    t = _check_t(t, n)
     if qd is None:
         qd, qdd = joint_derivatives(t, q)
-    kin = robot.kinematics(q, qd, qdd if qdd is not None else np.zeros_like(q))
-    out = {}
-    for site in robot.site_names if sites is None else sites:
-        R, _, w, a = robot.site_kinematics(kin, site)
-        # R^T v for stacks: (n,3,3)^T @ (n,3,1)
-        acc = np.einsum("nji,nj->ni", R, a - _G)
-        gyro = np.einsum("nji,nj->ni", R, w)
-        if noise is not None:
-            acc, gyro = noise.apply(t, acc, gyro, rng)
-        out[site] = (acc, gyro)
+    q, qd, qdd = robot._check_motion(q, qd, qdd)
+    wanted = robot.site_names if sites is None else tuple(sites)
+    specs = [robot._site(site) for site in wanted]
+    out = {site: (np.empty((n, 3)), np.empty((n, 3))) for site in wanted}
+    up = [0.0, 0.0, STANDARD_GRAVITY]  # -g
+    # Chunks of samples keep the component arrays in cache; the result does not
+    # depend on the chunk size (every sample is computed independently).
+    for start in range(0, n, _k.CHUNK):
+        sl = slice(start, min(start + _k.CHUNK, n))
+        R, _, w, al, a = robot._components(q[sl], qd[sl], qdd[sl])
+        for site, spec in zip(wanted, specs, strict=True):
+            L = spec["link"]
+            Rs = _k.matmul(R[L], spec["c_R"])
+            r = _k.matvec(R[L], spec["c_p"])
+            wL = w[L]
+            acc_base = _k.vadd(_k.vadd(a[L], _k.cross(al[L], r)),
+                               _k.cross(wL, _k.cross(wL, r)))
+            acc = _k.matTvec(Rs, _k.vadd(acc_base, up))
+            gyro = _k.matTvec(Rs, wL)
+            for k in range(3):
+                out[site][0][sl, k] = acc[k]  # a float constant broadcasts
+                out[site][1][sl, k] = gyro[k]
+    if noise is not None:
+        out = {site: noise.apply(t, acc, gyro, rng) for site, (acc, gyro) in out.items()}
     return out
 
 
@@ -316,8 +331,7 @@ def head_orientation(robot: Robot, q: ArrayLike, site: str = "head") -> HeadPose
         ``yaw``, ``pitch``, ``roll`` each shape (n,), rad; ``quaternion``
         shape (n, 4), ``(w, x, y, z)``.
     """
-    kin = robot.kinematics(q)
-    R, _, _, _ = robot.site_kinematics(kin, site)
+    R = robot.fk(q, sites=[site])[site][:, :3, :3]
     ypr = euler_zyx_from_matrices(R)
     return HeadPose(yaw=ypr[:, 0], pitch=ypr[:, 1], roll=ypr[:, 2],
                     quaternion=quaternions_from_matrices(R))
