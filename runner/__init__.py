@@ -17,7 +17,7 @@ _EXPORTS: dict[str, str] = {
     "Step": "choreography",
     "Timeline": "timeline",
     "load_choreography": "choreography",
-    "ramp": "ramp",
+    "ramp": "ramps",
     "LatenessStats": "clock",
     "Recorder": "recorder",
     "RecorderStats": "recorder",

@@ -25,7 +25,7 @@ import pandas as pd
 
 from echoreo.errors import ChoreographyError, InputError, Problem
 from echoreo.runner.interpolate import INTERPOLATIONS, evaluate
-from echoreo.runner.ramp import ramp
+from echoreo.runner.ramps import ramp
 from echoreo.runner.timeline import LIMIT_RTOL, SPAN_COLUMNS, Timeline, limit_usage
 from echoreo.yamlload import LDict, LList, Loc, load_yaml
 
@@ -264,7 +264,7 @@ class Choreography:
         Position limits, and velocity and acceleration by finite differences
         of the samples (:func:`~echoreo.runner.timeline.limit_usage`), are
         checked at this rate, as are the limits of the ramp from the robot's
-        rest pose to the first posture (:func:`~echoreo.runner.ramp.ramp`).
+        rest pose to the first posture (:func:`~echoreo.runner.ramps.ramp`).
 
         Parameters
         ----------
@@ -511,7 +511,7 @@ class _Parser:
         self.limit_problem_joints: set[str] = set()
         self.structural = False  # a problem that prevents compiling
         self.locs = _Locs()
-        self.unit = 1.0
+        self.unit: float | None = None
 
     # helpers ------------------------------------------------------------------------------
 
@@ -568,15 +568,16 @@ class _Parser:
             return default
         return value
 
-    def unit_of(self, mapping: LDict, default: float) -> float:
+    def unit_of(self, mapping: LDict, default: float | None) -> float | None:
+        """The unit factor to rad; None when the unit is unknown (angles not range-checked)."""
         if "unit" not in mapping:
             return default
         value = mapping["unit"]
-        if value not in UNITS:
+        if not isinstance(value, str) or value not in UNITS:
             self.add(mapping.value_loc("unit"),
                      f"unit must be 'deg' or 'rad', found {_type_name(value)}",
                      "write 'unit: deg' for degrees or 'unit: rad' for radians")
-            return default
+            return None
         return UNITS[value]
 
     # the document -------------------------------------------------------------------------
@@ -602,7 +603,7 @@ class _Parser:
         if "unit" not in doc:
             self.add(doc.loc, "the angle unit is missing (field 'unit')",
                      "add 'unit: deg' or 'unit: rad'; it applies to every angle in the file")
-        self.unit = self.unit_of(doc, 1.0)
+        self.unit = self.unit_of(doc, None)
         tempo = self.number(doc, "tempo", "the global tempo", required=False, default=1.0,
                             positive=True)
         poses = self.parse_poses(doc)
@@ -650,7 +651,7 @@ class _Parser:
                      "give a shipped robot's name (such as torso-e1) or a path relative to "
                      "this file")
 
-    def joint_targets(self, mapping: LDict, unit: float, what: str,
+    def joint_targets(self, mapping: LDict, unit: float | None, what: str,
                       skip: tuple[str, ...] = ()) -> dict[str, float]:
         """Joint name -> rad from a mapping of joint targets."""
         out: dict[str, float] = {}
@@ -673,6 +674,9 @@ class _Parser:
                 self.add(vloc, f"the angle of {key} in {what} must be a number, "
                                f"found {_type_name(value)}",
                          "write the angle as a plain number in the file's unit")
+                continue
+            if unit is None:  # unknown unit, reported already: the angle means nothing yet
+                self.structural = True
                 continue
             rad = float(value) * unit
             out[key] = rad
@@ -763,9 +767,10 @@ class _Parser:
             interp = None
             if "interpolation" in body:
                 interp = body["interpolation"]
-                if interp not in INTERPOLATIONS:
+                if not isinstance(interp, str) or interp not in INTERPOLATIONS:
+                    shown = repr(interp) if isinstance(interp, str) else _type_name(interp)
                     self.add(body.value_loc("interpolation"),
-                             f"unknown interpolation {_type_name(interp)} in move {mname!r}",
+                             f"unknown interpolation {shown} in move {mname!r}",
                              "use one of: " + ", ".join(INTERPOLATIONS))
                     interp = None
             if "mirror_of" in body:
@@ -905,6 +910,8 @@ class _Parser:
                     base = poses[pname]
                     if base is None and self.robot is not None:
                         ok = False
+            if unit is None:
+                ok = False
             if "joints" in frame:
                 joints = frame["joints"]
                 if not isinstance(joints, LDict):
@@ -1121,6 +1128,7 @@ def load_choreography(path: str | Path, robot: Any = None) -> Choreography:
         raise ChoreographyError(Problem(f"cannot read choreography: {exc}", name)) from exc
     parser = _Parser(name, doc, robot, text)
     parsed = parser.parse()
+    parser.problems.sort(key=lambda p: (p.file != name, p.line or 0, p.column or 0))
     if parser.structural or parser.robot is None:
         raise ChoreographyError(parser.problems)
     chor = Choreography(

@@ -88,7 +88,7 @@ def _pct(value: float) -> str:
 
 def _check_choreography(path: str, rate_hz: float, console: Console) -> None:
     from echoreo.runner.choreography import load_choreography
-    from echoreo.runner.ramp import ramp_duration
+    from echoreo.runner.ramps import ramp_duration
 
     chor = load_choreography(path)
     usage = chor.usage(rate_hz)

@@ -52,3 +52,13 @@ def test_timeline_is_read_only():
     tl = load_choreography(DATA_DIR / "warmup-right-arm.yaml").compile()
     with pytest.raises(ValueError):
         tl.q[0, 0] = 1.0
+
+
+def test_format_md_example_loads(tmp_path):
+    """The example in choreographies/FORMAT.md section 2 is a valid choreography."""
+    text = (DATA_DIR / "FORMAT.md").read_text(encoding="utf-8")
+    block = next(b for b in text.split("```yaml")[1:] if "echoreo-choreography/1" in b)
+    path = tmp_path / "example.yaml"
+    path.write_text(block.split("```")[0], encoding="utf-8")
+    chor = load_choreography(path)
+    assert chor.n_repetitions == 4
