@@ -67,6 +67,7 @@ References
 .. [6] Woodman, O. J. (2007). *An introduction to inertial navigation*.
    Technical Report UCAM-CL-TR-696, University of Cambridge Computer
    Laboratory. (White noise and bias of MEMS inertial sensors.)
+.. [7] Welford, A. T. (Ed.) (1980). *Reaction Times*. Academic Press.
 """
 
 from __future__ import annotations
@@ -153,8 +154,9 @@ class ImitationProfile:
     ----------
     lag_s : float, s
         Mean reaction lag of the participant behind the leader. Default 0.30 s:
-        somewhat longer than a simple visual reaction time (about 0.2 s),
-        since the person has to recognise the movement first (our choice).
+        somewhat longer than a simple visual reaction time (about 0.2 s;
+        Welford 1980, from memory), since the person has to recognise the
+        movement first (our choice).
     lag_jitter_s : float, s
         Standard deviation of the lag from one repetition to the next
         (per-person timing variability).
@@ -170,9 +172,11 @@ class ImitationProfile:
     noise_band_hz : float, Hz
         Upper band edge of the movement noise (low-pass, lower edge 0).
     tremor_rad : float, rad
-        RMS of the tremor on each arm joint. Default 1e-4 rad: at a radius of
-        about 0.3 m and 9 Hz this is about 0.1 m/s^2 at the wrist, the order of
-        normal postural hand tremor (0.01 g typical, Wade et al. 1982).
+        RMS of the tremor on each arm joint. Default 4e-5 rad: with all five
+        arm joints trembling this gives about 0.011 g RMS (0.1 m/s^2) of
+        6-12 Hz acceleration at a wrist held at rest (measured on the model),
+        the order of normal postural hand tremor (0.0015-0.035 g peak, mode
+        0.01 g; Wade et al. 1982).
     tremor_hz : float, Hz
         Centre frequency of the tremor; physiological hand tremor peaks
         between 6 and 12 Hz (Lakie et al. 2015), 8-12 Hz for its neurogenic
@@ -205,7 +209,7 @@ class ImitationProfile:
     noise_rad: float = 0.02
     head_noise_rad: float = 0.008
     noise_band_hz: float = 1.0
-    tremor_rad: float = 1.0e-4
+    tremor_rad: float = 4.0e-5
     tremor_hz: float = 9.0
     tremor_bandwidth_hz: float = 1.5
     fatigue_per_rep: float = 0.0
