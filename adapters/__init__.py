@@ -12,6 +12,11 @@ from typing import Any
 
 #: public name -> submodule of this package that defines it
 _EXPORTS: dict[str, str] = {
+    "ChannelMap": "file_import",
+    "FileSource": "file_import",
+    "ImportMapping": "file_import",
+    "StreamMap": "file_import",
+    "TimeSpec": "file_import",
     "Clock": "base",
     "ClockMap": "base",
     "Command": "base",

@@ -12,6 +12,8 @@ from typing import Any
 
 #: public name -> submodule of this package that defines it
 _EXPORTS: dict[str, str] = {
+    "ImportResult": "cmd_import",
+    "record_import": "cmd_import",
     "Choreography": "choreography",
     "Move": "choreography",
     "Step": "choreography",
