@@ -14,6 +14,18 @@ from typing import Any
 
 #: public name -> submodule of this package that defines it
 _EXPORTS: dict[str, str] = {
+    "embed": "embedding",
+    "embedding_length": "embedding",
+    "ami": "mutual_information",
+    "choose_delay": "mutual_information",
+    "fnn": "dimension",
+    "cao": "dimension",
+    "CaoResult": "dimension",
+    "choose_dimension": "dimension",
+    "rqa": "recurrence",
+    "recurrence_radius": "recurrence",
+    "RQA_KEYS": "recurrence",
+    "PCA": "pca",
     "icc": "reliability",
     "ReportData": "report",
     "build_report": "report",

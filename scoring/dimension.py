@@ -1,0 +1,298 @@
+"""Embedding dimension: false nearest neighbours (Kennel et al. 1992) and Cao's E1/E2 (Cao 1997)."""
+
+from __future__ import annotations
+
+from typing import Literal, NamedTuple
+
+import numpy as np
+from scipy.spatial import cKDTree
+
+from echoreo.errors import ScoringInputError
+from echoreo.scoring._checks import as_series, check_positive_int, require_not_constant
+from echoreo.scoring.embedding import embed
+
+__all__ = ["CaoResult", "cao", "choose_dimension", "fnn"]
+
+#: Fewest delay vectors the largest tested dimension must still have.
+MIN_VECTORS = 10
+
+#: Default FNN threshold of choose_dimension: the first dimension whose fraction
+#: of false neighbours is below 1 %. Kennel et al. (1992) read the dimension off
+#: where the fraction "drops to zero"; 1 % is our operational reading of that.
+FNN_THRESHOLD = 0.01
+
+#: Default Cao threshold of choose_dimension: the first d with E1(d) >= 0.7.
+#: Cao (1997) takes the dimension where E1 "stops changing" (saturates near 1)
+#: without giving a number. 0.7, not a level nearer 1: with the delay at the first AMI
+#: minimum, Lorenz gives E1(3) = 0.74-0.76 and E1(4) = 0.93 at n = 1,000-50,000 (our
+#: computation), so 0.9 would call the Lorenz attractor four-dimensional.
+CAO_THRESHOLD = 0.7
+
+
+class CaoResult(NamedTuple):
+    """Cao's statistics for d = 1, ..., max_dim - 1 (unpacks as ``E1, E2``)."""
+
+    E1: np.ndarray
+    E2: np.ndarray
+
+
+def _prepare(x: object, delay: object, max_dim: object) -> tuple[np.ndarray, int, int]:
+    series = as_series(x)
+    delay = check_positive_int(delay, "delay")
+    max_dim = check_positive_int(max_dim, "max_dim", minimum=2)
+    n = series.shape[0]
+    needed = max_dim * delay + MIN_VECTORS
+    if n < needed:
+        raise ScoringInputError(
+            f"a series of {n} samples is too short to test dimensions up to {max_dim} with "
+            f"delay {delay}: at least {needed} samples are needed "
+            f"(max_dim * delay + {MIN_VECTORS} delay vectors)",
+            hint="use a smaller max_dim or delay, or a longer series",
+        )
+    require_not_constant(series)
+    return series, delay, max_dim
+
+
+def _nearest_other(points: np.ndarray, p: float, nonzero: bool) -> tuple[np.ndarray, np.ndarray]:
+    """Index and distance of every point's nearest neighbour other than itself.
+
+    With ``nonzero`` the neighbour must also lie at a positive distance (Cao 1997:
+    identical vectors are skipped); points without any such neighbour get index -1.
+    """
+    n = points.shape[0]
+    tree = cKDTree(points)
+    dist, idx = tree.query(points, k=2, p=p, workers=-1)
+    own = np.arange(n)
+    first_is_self = idx[:, 0] == own
+    nb = np.where(first_is_self, idx[:, 1], idx[:, 0])
+    nd = np.where(first_is_self, dist[:, 1], dist[:, 0])
+    if nonzero:
+        todo = np.flatnonzero(nd == 0.0)
+        k = 4
+        while todo.size:
+            kk = min(k, n)
+            d2, i2 = tree.query(points[todo], k=kk, p=p, workers=-1)
+            ok = d2 > 0.0
+            has = ok.any(axis=1)
+            col = np.argmax(ok, axis=1)
+            rows = np.arange(todo.size)
+            nb[todo[has]] = i2[rows, col][has]
+            nd[todo[has]] = d2[rows, col][has]
+            todo = todo[~has]
+            if kk == n:
+                nb[todo] = -1
+                break
+            k *= 4
+    return nb, nd
+
+
+def fnn(x: object, delay: int, max_dim: int = 10, rtol: float = 15.0,
+        atol: float = 2.0) -> np.ndarray:
+    r"""Fraction of false nearest neighbours for dimensions 1 to ``max_dim``.
+
+    For dimension :math:`d`, every delay vector :math:`\mathbf{y}_i(d)`,
+    :math:`i < N_d = n - d\tau`, gets its Euclidean nearest neighbour
+    :math:`\mathbf{y}_{j}(d)` (itself excluded) at distance :math:`R_d(i)`. The
+    neighbour is false when adding the :math:`(d+1)`-th coordinate separates the
+    two by either criterion of Kennel, Brown & Abarbanel (1992):
+
+    .. math::
+
+        \frac{|x_{i+d\tau} - x_{j+d\tau}|}{R_d(i)} > R_{tol}
+        \quad\text{or}\quad
+        \frac{R_{d+1}(i)}{R_A} > A_{tol},
+        \qquad R_{d+1}^2 = R_d^2 + (x_{i+d\tau} - x_{j+d\tau})^2,
+
+    with :math:`R_A` the standard deviation of the series. The result is the
+    fraction of false neighbours among the :math:`N_d` vectors. Neighbour search:
+    one k-d tree per dimension (``scipy.spatial.cKDTree``), all points queried at once.
+
+    Parameters
+    ----------
+    x : array_like, shape (n,) or (n, 1)
+        The scalar series.
+    delay : int
+        Embedding delay :math:`\tau`, in samples.
+    max_dim : int, default 10
+        Largest dimension tested (at least 2).
+    rtol : float, default 15.0
+        :math:`R_{tol}`; Kennel et al. (1992) use 15.
+    atol : float, default 2.0
+        :math:`A_{tol}`; Kennel et al. (1992) use 2.
+
+    Returns
+    -------
+    ndarray, shape (max_dim,)
+        Fractions (0 to 1) for :math:`d = 1, \dots,` ``max_dim``.
+
+    Raises
+    ------
+    ScoringInputError
+        For constant, multichannel or NaN-containing input, or fewer than
+        ``max_dim * delay + 10`` samples.
+
+    References
+    ----------
+    M. B. Kennel, R. Brown and H. D. I. Abarbanel (1992). Determining embedding
+    dimension for phase-space reconstruction using a geometrical construction.
+    *Physical Review A* 45(6):3403-3411.
+    """
+    series, delay, max_dim = _prepare(x, delay, max_dim)
+    n = series.shape[0]
+    r_a = float(np.std(series))
+    out = np.empty(max_dim)
+    for d in range(1, max_dim + 1):
+        count = n - d * delay
+        points = embed(series, d, delay)[:count]
+        nb, r_d = _nearest_other(points, p=2.0, nonzero=False)
+        gap = np.abs(series[d * delay : d * delay + count] - series[nb + d * delay])
+        false1 = gap > rtol * r_d
+        false2 = np.sqrt(r_d * r_d + gap * gap) > atol * r_a
+        out[d - 1] = np.count_nonzero(false1 | false2) / count
+    return out
+
+
+def cao(x: object, delay: int, max_dim: int = 10) -> CaoResult:
+    r"""Cao's statistics E1 and E2 for dimensions 1 to ``max_dim - 1``.
+
+    For dimension :math:`d`, every delay vector :math:`\mathbf{y}_i(d)`,
+    :math:`i < N_d = n - d\tau`, gets its nearest neighbour
+    :math:`\mathbf{y}_{n(i,d)}(d)` in the maximum norm (itself and identical
+    vectors excluded, as Cao prescribes). Then
+
+    .. math::
+
+        a(i,d) = \frac{\|\mathbf{y}_i(d+1) - \mathbf{y}_{n(i,d)}(d+1)\|_\infty}
+                      {\|\mathbf{y}_i(d) - \mathbf{y}_{n(i,d)}(d)\|_\infty},
+        \qquad
+        E(d) = \frac{1}{N_d}\sum_i a(i,d),
+        \qquad
+        E^*(d) = \frac{1}{N_d}\sum_i |x_{i+d\tau} - x_{n(i,d)+d\tau}|,
+
+    .. math::
+
+        E_1(d) = \frac{E(d+1)}{E(d)}, \qquad E_2(d) = \frac{E^*(d+1)}{E^*(d)}.
+
+    :math:`E_1` saturates near 1 from the minimal embedding dimension on;
+    :math:`E_2` stays near 1 for every :math:`d` for a random series, and departs
+    from 1 for some :math:`d` for a deterministic one (Cao 1997).
+
+    Parameters
+    ----------
+    x : array_like, shape (n,) or (n, 1)
+        The scalar series.
+    delay : int
+        Embedding delay :math:`\tau`, in samples.
+    max_dim : int, default 10
+        :math:`E(d)` is computed for :math:`d = 1, \dots,` ``max_dim``, hence
+        :math:`E_1`, :math:`E_2` for :math:`d = 1, \dots,` ``max_dim - 1``.
+
+    Returns
+    -------
+    CaoResult
+        ``(E1, E2)``, each ndarray of shape (max_dim - 1,), dimensionless;
+        element ``d - 1`` belongs to dimension ``d``.
+
+    Raises
+    ------
+    ScoringInputError
+        For constant, multichannel or NaN-containing input, or fewer than
+        ``max_dim * delay + 10`` samples.
+
+    References
+    ----------
+    L. Cao (1997). Practical method for determining the minimum embedding
+    dimension of a scalar time series. *Physica D* 110(1-2):43-50.
+    """
+    series, delay, max_dim = _prepare(x, delay, max_dim)
+    n = series.shape[0]
+    e = np.empty(max_dim)
+    e_star = np.empty(max_dim)
+    for d in range(1, max_dim + 1):
+        count = n - d * delay
+        points = embed(series, d, delay)[:count]
+        nb, r_d = _nearest_other(points, p=np.inf, nonzero=True)
+        keep = nb >= 0
+        if not keep.any():
+            raise ScoringInputError(
+                f"every delay vector of dimension {d} is identical to all others; "
+                "Cao's statistics are undefined"
+            )
+        own = np.flatnonzero(keep)
+        gap = np.abs(series[own + d * delay] - series[nb[keep] + d * delay])
+        # In the maximum norm the (d+1)-distance is max(R_d, |new coordinate gap|).
+        e[d - 1] = float(np.mean(np.maximum(r_d[keep], gap) / r_d[keep]))
+        e_star[d - 1] = float(np.mean(gap))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        e2 = np.where(e_star[:-1] > 0, e_star[1:] / np.where(e_star[:-1] > 0, e_star[:-1], 1.0),
+                      np.nan)
+    return CaoResult(E1=e[1:] / e[:-1], E2=e2)
+
+
+def choose_dimension(x: object, delay: int, method: Literal["fnn", "cao"] = "fnn", *,
+                     max_dim: int = 10, threshold: float | None = None) -> int:
+    r"""Minimal embedding dimension by false nearest neighbours or by Cao's E1.
+
+    ``method="fnn"``: the smallest :math:`d` whose fraction of false nearest
+    neighbours (:func:`fnn`, Kennel et al. 1992) is below ``threshold``
+    (default 0.01); when none is, the :math:`d` of the smallest fraction.
+
+    ``method="cao"``: the smallest :math:`d` with :math:`E_1(d) \ge` ``threshold``
+    (default 0.7), i.e. where :math:`E_1` has saturated near 1 (Cao 1997); when
+    none does, ``max_dim``.
+
+    Both thresholds are our operational readings of the papers, which describe
+    the criterion ("drops to zero", "stops changing") without a number.
+    When the series is too short for ``max_dim``, ``max_dim`` is lowered to the
+    largest testable value (documented fallback); fewer than 2 testable
+    dimensions raise.
+
+    Parameters
+    ----------
+    x : array_like, shape (n,) or (n, 1)
+        The scalar series.
+    delay : int
+        Embedding delay, in samples (e.g. from :func:`choose_delay`).
+    method : {"fnn", "cao"}
+        Criterion.
+    max_dim : int, default 10
+        Largest dimension considered.
+    threshold : float, optional
+        FNN fraction (default 0.01) or Cao E1 level (default 0.7).
+
+    Returns
+    -------
+    int
+        The embedding dimension, ``1 <= dim <= max_dim``.
+
+    References
+    ----------
+    M. B. Kennel, R. Brown and H. D. I. Abarbanel (1992). Determining embedding
+    dimension for phase-space reconstruction using a geometrical construction.
+    *Physical Review A* 45(6):3403-3411.
+
+    L. Cao (1997). Practical method for determining the minimum embedding
+    dimension of a scalar time series. *Physica D* 110(1-2):43-50.
+    """
+    series = as_series(x)
+    delay = check_positive_int(delay, "delay")
+    max_dim = check_positive_int(max_dim, "max_dim", minimum=2)
+    testable = (series.shape[0] - MIN_VECTORS) // delay
+    if testable < 2:
+        raise ScoringInputError(
+            f"a series of {series.shape[0]} samples is too short to choose a dimension with "
+            f"delay {delay}: at least {2 * delay + MIN_VECTORS} samples are needed",
+            hint="use a smaller delay or a longer series",
+        )
+    max_dim = min(max_dim, testable)
+    if method == "fnn":
+        level = FNN_THRESHOLD if threshold is None else float(threshold)
+        fractions = fnn(series, delay, max_dim=max_dim)
+        below = np.flatnonzero(fractions < level)
+        return int(below[0]) + 1 if below.size else int(np.argmin(fractions)) + 1
+    if method == "cao":
+        level = CAO_THRESHOLD if threshold is None else float(threshold)
+        e1, _ = cao(series, delay, max_dim=max_dim)
+        above = np.flatnonzero(e1 >= level)
+        return int(above[0]) + 1 if above.size else max_dim
+    raise ScoringInputError(f"method must be 'fnn' or 'cao'; got {method!r}")
