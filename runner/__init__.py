@@ -27,6 +27,22 @@ _EXPORTS: dict[str, str] = {
     "SessionClock": "clock",
     "Tick": "clock",
     "VirtualClock": "clock",
+    "AdapterSpec": "plan",
+    "PlanItem": "plan",
+    "SessionPlan": "plan",
+    "StreamPair": "plan",
+    "check_plan": "plan",
+    "load_plan": "plan",
+    "SessionProgram": "program",
+    "build_program": "program",
+    "check_program": "program",
+    "RepetitionEnd": "session",
+    "SessionResult": "session",
+    "run_session": "session",
+    "LiveView": "liveview",
+    "PlainLog": "liveview",
+    "SessionStatus": "liveview",
+    "make_view": "liveview",
 }
 
 __all__ = sorted(_EXPORTS)

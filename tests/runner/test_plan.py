@@ -1,0 +1,172 @@
+"""Session plans: validation with located errors, participant codes, consent, pairs."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+import textwrap
+from pathlib import Path
+
+import pytest
+
+from echoreo.errors import PlanError
+from echoreo.runner.plan import (
+    check_participant_code,
+    check_plan,
+    leader_site_for,
+    load_plan,
+)
+
+PLANS = Path(__file__).resolve().parents[2] / "choreographies" / "plans"
+
+GOOD = """\
+study: plan-test
+participant: P01
+consent_recorded: true
+robot: torso-e1
+mode: mirror
+command_rate_hz: 50
+countdown_s: 2
+rest_s: 3
+choreographies:
+  - warmup-right-arm
+  - {name: warmup-head, countdown_s: 1}
+streams:
+  - {stream: right_wrist_imu, kind: imu, site: right_wrist}
+  - {stream: head_pose, kind: head_pose, site: head, rate_hz: 30}
+leader: {adapter: simulated, seed: 1}
+followers:
+  - {adapter: simulated, seed: 2, profile: good}
+"""
+
+
+def _write(tmp_path: Path, text: str, name: str = "plan.yaml") -> Path:
+    p = tmp_path / name
+    p.write_text(textwrap.dedent(text), encoding="utf-8")
+    return p
+
+
+@pytest.mark.parametrize("name", ["simulated.yaml", "zeromq.yaml"])
+def test_shipped_plans_are_valid(name):
+    """The shipped example plans load (FORMAT.md section 3 examples)."""
+    plan = check_plan(PLANS / name)
+    assert plan.consent_recorded and plan.items
+    assert plan.all_simulated == (name == "simulated.yaml")
+
+
+def test_good_plan_fields(tmp_path):
+    """Defaults, per-item overrides and the mirror pairing come out as documented."""
+    plan = load_plan(_write(tmp_path, GOOD))
+    assert plan.study == "plan-test" and plan.participant == "P01"
+    assert [it.countdown_s for it in plan.items] == [2.0, 1.0]
+    assert [it.rest_s for it in plan.items] == [3.0, 3.0]
+    assert plan.items[0].name == "warmup-right-arm"
+    pairs = {p.stream: p.leader_site for p in plan.pairs}
+    # FORMAT.md section 3: mirror mode pairs the participant's right wrist with the robot's left
+    assert pairs == {"right_wrist_imu": "left_wrist", "head_pose": "head"}
+    assert plan.pairs[1].rate_hz == 30.0
+    assert plan.all_simulated
+
+
+def test_mirror_and_anatomical_pairing():
+    """Mirror swaps left and right; anatomical keeps the side; midline sites pair alike."""
+    assert leader_site_for("right_wrist", "mirror") == "left_wrist"
+    assert leader_site_for("left_wrist", "mirror") == "right_wrist"
+    assert leader_site_for("right_wrist", "anatomical") == "right_wrist"
+    assert leader_site_for("head", "mirror") == "head"
+
+
+def test_all_problems_located_in_one_pass(tmp_path):
+    """Several mistakes give one PlanError listing each with file:line:column."""
+    text = GOOD.replace("mode: mirror", "mode: sideways") \
+        .replace("command_rate_hz: 50", "comand_rate_hz: 50") \
+        .replace("kind: imu", "kind: imuu") \
+        .replace("- warmup-right-arm", "- no-such-choreography")
+    path = _write(tmp_path, text)
+    with pytest.raises(PlanError) as info:
+        load_plan(path)
+    problems = info.value.problems
+    text_all = str(info.value)
+    assert len(problems) >= 5
+    assert all(p.file == str(path) and p.line is not None for p in problems)
+    lines = {p.line for p in problems}
+    assert 5 in lines   # mode: sideways is on line 5
+    assert 6 in lines   # the misspelt key
+    assert "did you mean 'command_rate_hz'" in text_all
+    assert "no-such-choreography" in text_all
+    assert "imuu" in text_all
+
+
+@pytest.mark.parametrize("code", ["Anna", "John Smith", "Ann3", "P-01", "123", "ABCDE1",
+                                  "P12345", "", "Jane.Doe1"])
+def test_names_and_non_codes_refused(tmp_path, code):
+    """Anything but 1-4 letters + 1-4 digits is refused, with the reason, and not echoed in full."""
+    path = _write(tmp_path, GOOD.replace("participant: P01", f"participant: '{code}'"))
+    with pytest.raises(PlanError) as info:
+        load_plan(path)
+    msg = str(info.value)
+    assert "pseudonymous" in msg and "participant code" in msg
+    assert info.value.problems[0].line == 2
+    if len(code) > 3:
+        assert code not in msg
+
+
+@pytest.mark.parametrize("code", ["P01", "ab123", "X1", "GRPA9999"])
+def test_codes_accepted(code):
+    """Pseudonymous codes pass."""
+    assert check_participant_code(code) == []
+
+
+def test_participant_override_is_checked(tmp_path):
+    """A code given at run time is validated like the plan's."""
+    path = _write(tmp_path, GOOD)
+    assert load_plan(path, participant="Q7").participant == "Q7"
+    with pytest.raises(PlanError):
+        load_plan(path, participant="Maria")
+
+
+@pytest.mark.parametrize("replacement", ["", "consent_recorded: false\n",
+                                         "consent_recorded: yes please\n"])
+def test_consent_required(tmp_path, replacement):
+    """A plan without `consent_recorded: true` is refused."""
+    path = _write(tmp_path, GOOD.replace("consent_recorded: true\n", replacement))
+    with pytest.raises(PlanError) as info:
+        load_plan(path)
+    assert "consent" in str(info.value)
+
+
+def test_leader_site_contradicting_mode_refused(tmp_path):
+    """Pairing the right wrist with the robot's right wrist in mirror mode is refused."""
+    text = GOOD.replace("site: right_wrist}", "site: right_wrist, leader_site: right_wrist}")
+    with pytest.raises(PlanError) as info:
+        load_plan(_write(tmp_path, text))
+    p = info.value.problems[0]
+    assert p.line == 13 and "mirror" in p.message
+
+
+def test_simulated_adapters_need_seeds(tmp_path):
+    """Simulated adapters without a seed are refused (sessions must be repeatable)."""
+    text = GOOD.replace("{adapter: simulated, seed: 1}", "{adapter: simulated}")
+    with pytest.raises(PlanError) as info:
+        load_plan(_write(tmp_path, text))
+    assert "seed" in str(info.value)
+
+
+def test_relative_choreography_path(tmp_path):
+    """A choreography path is relative to the plan's folder."""
+    src = Path(__file__).resolve().parents[2] / "choreographies" / "warmup-head.yaml"
+    (tmp_path / "sub").mkdir()
+    (tmp_path / "sub" / "mine.yaml").write_text(src.read_text(encoding="utf-8"),
+                                                 encoding="utf-8")
+    text = GOOD.replace("- warmup-right-arm", "- sub/mine.yaml")
+    plan = load_plan(_write(tmp_path, text))
+    assert plan.items[0].path == (tmp_path / "sub" / "mine.yaml").resolve()
+
+
+def test_echoreo_check_reports_plan_problems(tmp_path):
+    """`echoreo check PLAN` exits 2 and prints the located problem (real subprocess)."""
+    path = _write(tmp_path, GOOD.replace("consent_recorded: true\n", ""))
+    proc = subprocess.run([sys.executable, "-m", "echoreo.runner.cli", "check", str(path)],
+                          capture_output=True, text=True, timeout=60)
+    assert proc.returncode == 2
+    assert "consent" in proc.stdout + proc.stderr
