@@ -26,10 +26,18 @@ so the recorder's writer thread keeps running) until the deadline passes.
 sleep overshoot, kept between 200 µs and 2 ms, so an idle machine spins
 about 0.2 ms per tick (2 % of a core at 100 Hz) and a loaded one spins longer
 instead of waking late.
+
+On a machine shared with other busy processes the loop can still be
+descheduled at the wrong moment; :func:`request_realtime_priority` asks the
+kernel for the ``SCHED_FIFO`` policy for the calling thread (needs root or
+``CAP_SYS_NICE``; refused quietly otherwise). Linux's real-time throttling
+(``kernel.sched_rt_runtime_us``, 95 % by default) keeps a spinning real-time
+thread from locking up a core.
 """
 
 from __future__ import annotations
 
+import os
 import time
 from array import array
 from collections.abc import Iterator
@@ -39,7 +47,33 @@ from fractions import Fraction
 
 import numpy as np
 
-__all__ = ["LatenessStats", "Scheduler", "SessionClock", "Tick", "VirtualClock"]
+__all__ = ["LatenessStats", "Scheduler", "SessionClock", "Tick", "VirtualClock",
+           "request_realtime_priority"]
+
+
+def request_realtime_priority(priority: int = 10) -> bool:
+    """Run the calling thread under ``SCHED_FIFO`` at ``priority`` (Linux), if allowed.
+
+    Parameters
+    ----------
+    priority : int
+        Real-time priority, 1 (lowest) to 99; 10 is above every ordinary
+        process and below the kernel's own real-time threads.
+
+    Returns
+    -------
+    bool
+        True when the policy was set; False when the system or the user's
+        rights do not allow it (nothing changes then).
+    """
+    setter = getattr(os, "sched_setscheduler", None)
+    if setter is None:
+        return False
+    try:
+        setter(0, os.SCHED_FIFO, os.sched_param(priority))
+    except (OSError, ValueError):
+        return False
+    return True
 
 
 def _utc_iso(dt: datetime) -> str:

@@ -422,11 +422,24 @@ class Recorder:
         stop: _Stop | None = None
         try:
             while stop is None:
-                item = self._queue.get()
+                item = self._queue.get()  # idle: wait without a transaction open
                 first = time.monotonic()
                 deadline = first + self.commit_interval_s
-                batch = [item]
-                while not isinstance(item, (_Stop, _Flush)):
+                # Items are executed as they arrive inside one open transaction,
+                # so a commit follows at most commit_interval_s plus one item's
+                # execution after the batch's first hand-over, however fast
+                # items arrive.
+                conn.execute("BEGIN")
+                counts = [0, 0]
+                flushes: list[_Flush] = []
+                while True:
+                    if isinstance(item, _Stop):
+                        stop = item
+                        break
+                    if isinstance(item, _Flush):
+                        flushes.append(item)
+                        break
+                    self._apply(conn, item, counts)
                     left = deadline - time.monotonic()
                     if left <= 0:
                         break
@@ -434,8 +447,17 @@ class Recorder:
                         item = self._queue.get(timeout=left)
                     except queue.Empty:
                         break
-                    batch.append(item)
-                stop = self._commit(conn, batch, first)
+                conn.execute("COMMIT")
+                self._commits += 1
+                self._max_gap = max(self._max_gap, time.monotonic() - first)
+                self._rows_written += counts[0]
+                self._events_written += counts[1]
+                if counts[0]:
+                    with self._cond:
+                        self._pending -= counts[0]
+                        self._cond.notify_all()
+                for f in flushes:
+                    f.done.set()
             self._finish(conn, stop.state)
         except BaseException as exc:  # disk full, I/O error: report on the next call
             self._error = exc
@@ -446,60 +468,38 @@ class Recorder:
             except sqlite3.Error:
                 pass
 
-    def _commit(self, conn: sqlite3.Connection, batch: list, first: float) -> _Stop | None:
-        rows = events = 0
-        stop = None
-        flushes = []
-        conn.execute("BEGIN")
-        for item in batch:
-            if isinstance(item, _Stop):
-                stop = item
-                continue
-            if isinstance(item, _Flush):
-                flushes.append(item)
-                continue
-            tag = item[0]
-            if tag == "rows":
-                _, stream, t, td, s, d = item
-                placeholders = ", ".join("?" * (3 + d.shape[1]))
-                conn.executemany(f"INSERT INTO {stream_table(stream)} VALUES ({placeholders})",
-                                 zip(t.tolist(), td.tolist(), s.tolist(), *d.T.tolist(),
-                                     strict=True))
-                rows += t.shape[0]
-            elif tag == "event":
-                conn.execute("INSERT INTO events (t_ns, kind, stream, detail) "
-                             "VALUES (?, ?, ?, ?)", item[1])
-                events += 1
-            elif tag == "stream":
-                _, ddl, row = item
-                conn.execute(ddl)
-                conn.execute("INSERT INTO streams (name, kind, channels, units, rate_hz, "
-                             "source, clock_map) VALUES (?, ?, ?, ?, ?, ?, ?)", row)
-            elif tag == "clock_map":
-                conn.execute("UPDATE streams SET clock_map = ? WHERE name = ?",
-                             (item[2], item[1]))
-            elif tag == "spans":
-                _, span_rows, append = item
-                if not append:
-                    conn.execute("DELETE FROM spans")
-                conn.executemany("INSERT INTO spans (choreography, step, move, repetition, "
-                                 "kind, t_start_ns, t_end_ns) VALUES (?, ?, ?, ?, ?, ?, ?)",
-                                 span_rows)
-            elif tag == "meta":
-                conn.execute("INSERT OR REPLACE INTO meta (key, value) VALUES (?, ?)",
-                             (item[1], item[2]))
-        conn.execute("COMMIT")
-        self._commits += 1
-        self._max_gap = max(self._max_gap, time.monotonic() - first)
-        self._rows_written += rows
-        self._events_written += events
-        if rows:
-            with self._cond:
-                self._pending -= rows
-                self._cond.notify_all()
-        for f in flushes:
-            f.done.set()
-        return stop
+    def _apply(self, conn: sqlite3.Connection, item: tuple, counts: list[int]) -> None:
+        """Execute one handed-over item inside the open transaction."""
+        tag = item[0]
+        if tag == "rows":
+            _, stream, t, td, s, d = item
+            placeholders = ", ".join("?" * (3 + d.shape[1]))
+            conn.executemany(f"INSERT INTO {stream_table(stream)} VALUES ({placeholders})",
+                             zip(t.tolist(), td.tolist(), s.tolist(), *d.T.tolist(),
+                                 strict=True))
+            counts[0] += t.shape[0]
+        elif tag == "event":
+            conn.execute("INSERT INTO events (t_ns, kind, stream, detail) "
+                         "VALUES (?, ?, ?, ?)", item[1])
+            counts[1] += 1
+        elif tag == "stream":
+            _, ddl, row = item
+            conn.execute(ddl)
+            conn.execute("INSERT INTO streams (name, kind, channels, units, rate_hz, "
+                         "source, clock_map) VALUES (?, ?, ?, ?, ?, ?, ?)", row)
+        elif tag == "clock_map":
+            conn.execute("UPDATE streams SET clock_map = ? WHERE name = ?",
+                         (item[2], item[1]))
+        elif tag == "spans":
+            _, span_rows, append = item
+            if not append:
+                conn.execute("DELETE FROM spans")
+            conn.executemany("INSERT INTO spans (choreography, step, move, repetition, "
+                             "kind, t_start_ns, t_end_ns) VALUES (?, ?, ?, ?, ?, ?, ?)",
+                             span_rows)
+        elif tag == "meta":
+            conn.execute("INSERT OR REPLACE INTO meta (key, value) VALUES (?, ?)",
+                         (item[1], item[2]))
 
     def _finish(self, conn: sqlite3.Connection, state: str) -> None:
         conn.execute("BEGIN")
