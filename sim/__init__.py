@@ -39,6 +39,11 @@ _EXPORTS: dict[str, str] = {
     "imus": "sensors",
     "joint_derivatives": "sensors",
     "LeaderSim": "leader",
+    "SAFETY_CAUTION": "draw",
+    "StickFigure": "draw",
+    "render_gif": "draw",
+    "render_strip": "draw",
+    "skeleton": "draw",
 }
 
 __all__ = sorted(_EXPORTS)
