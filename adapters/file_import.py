@@ -25,7 +25,7 @@ from __future__ import annotations
 import csv
 import math
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from decimal import Decimal, InvalidOperation
 from pathlib import Path
 from typing import Any
@@ -80,11 +80,14 @@ class TimeSpec:
         One of :data:`TIME_UNITS`.
     offset_ns : int
         Added to the device time to give session time, ns.
+    loc : Loc or None
+        Where the column was named (mapping file position), for messages.
     """
 
     column: str
     unit: str
     offset_ns: int = 0
+    loc: Loc | None = field(default=None, compare=False)
 
 
 @dataclass(frozen=True)
@@ -103,6 +106,8 @@ class ChannelMap:
         Unit stored (``m/s^2``, ``rad/s``; the given unit when unknown).
     scale : float
         Factor from ``unit`` to ``si_unit``.
+    loc : Loc or None
+        Where the channel was described (mapping file position), for messages.
     """
 
     name: str
@@ -110,6 +115,7 @@ class ChannelMap:
     unit: str
     si_unit: str
     scale: float
+    loc: Loc | None = field(default=None, compare=False)
 
 
 @dataclass(frozen=True)
@@ -336,7 +342,8 @@ def _time_from_yaml(tdoc: Any, loc: Loc, problems: list[Problem]) -> TimeSpec | 
         ok = False
     if not ok:
         return None
-    return TimeSpec(column, unit, round(Decimal(repr(offset)) * 1_000_000_000))
+    return TimeSpec(column, unit, round(Decimal(repr(offset)) * 1_000_000_000),
+                    tdoc.value_loc("column"))
 
 
 def _channel(name: Any, column: Any, unit: Any, loc: Loc, problems: list[Problem]) -> ChannelMap:
@@ -346,7 +353,7 @@ def _channel(name: Any, column: Any, unit: Any, loc: Loc, problems: list[Problem
         problems.append(loc.problem(exc.problems[0].message, exc.problems[0].hint))
     unit = str(unit)
     si, scale = CHANNEL_UNITS.get(unit, (unit, 1.0))
-    return ChannelMap(str(name), str(column), unit, si, scale)
+    return ChannelMap(str(name), str(column), unit, si, scale, loc if loc.file else None)
 
 
 def _stream(name: Any, kind: Any, channels: list[ChannelMap], tspec: TimeSpec | None,
@@ -408,7 +415,7 @@ def _stream_from_yaml(name: Any, sdoc: Any, key_loc: Loc, loc: Loc, top_time: Ti
                 if key not in ("column", "unit"):
                     problems.append(c.key_loc(key).problem(f"unknown key {key!r} in channel "
                                                            f"{cname!r}", "use column, unit"))
-            channels.append(_channel(cname, c["column"], c["unit"], cdoc.key_loc(cname),
+            channels.append(_channel(cname, c["column"], c["unit"], c.value_loc("column"),
                                      problems))
     file = None
     if "file" in sdoc:
@@ -613,16 +620,18 @@ def _stream_samples(sm: StreamMap, path: Path, header: list[str],
                                     f"{index[h] + 1} and {i + 1})", name, 1,
                                     hint="give every column its own name"))
         index.setdefault(h, i)
-    wanted = [("time", sm.time.column)] + [(c.name, c.column) for c in sm.channels]
+    wanted = [(sm.time.column, sm.time.loc)] + [(c.column, c.loc) for c in sm.channels]
     if sm.seq_column:
-        wanted.append(("seq", sm.seq_column))
-    missing = [col for _, col in wanted if col not in index]
+        wanted.append((sm.seq_column, None))
+    missing = [(col, loc) for col, loc in wanted if col not in index]
     if missing:
         shown = ", ".join(repr(h) for h in header[:20]) + (" ..." if len(header) > 20 else "")
-        problems.append(Problem(
-            f"stream {sm.name!r}: column(s) {', '.join(map(repr, missing))} not in {name} "
-            f"(columns: {shown})", mapping_source,
-            hint="fix the column names in the mapping; they must match the header exactly"))
+        hint = "fix the column name in the mapping; it must match the header exactly"
+        for col, loc in missing:
+            message = (f"stream {sm.name!r}: column {col!r} is not in {name} "
+                       f"(columns: {shown})")
+            problems.append(loc.problem(message, hint) if loc is not None
+                            else Problem(message, mapping_source, hint=hint))
         return None
     t_col = index[sm.time.column]
     c_cols = [index[c.column] for c in sm.channels]

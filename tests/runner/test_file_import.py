@@ -124,7 +124,8 @@ BAD_DATA = [
                  "time goes back", id="time-back"),
     pytest.param("time_ms,ax,gz,yaw\n0,1,2,3\n,1,2,3\n", "wrist.csv:3:", "not a number of ms",
                  id="no-time"),
-    pytest.param("time_ms,ax,yaw\n0,1,3\n", "map.yaml:", "'gz' not in", id="missing-column"),
+    pytest.param("time_ms,ax,yaw\n0,1,3\n", "map.yaml:10:", "column 'gz' is not in",
+                 id="missing-column"),
     pytest.param("time_ms,ax,gz,yaw\n0,1,2,3\n10,\"1,2,3\n", "wrist.csv:", "malformed",
                  id="open-quote"),
 ]
