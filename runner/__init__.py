@@ -12,6 +12,7 @@ from typing import Any
 
 #: public name -> submodule of this package that defines it
 _EXPORTS: dict[str, str] = {
+    "request_realtime_priority": "clock",
     "ImportResult": "cmd_import",
     "record_import": "cmd_import",
     "Choreography": "choreography",
