@@ -27,6 +27,19 @@ _EXPORTS: dict[str, str] = {
     "SampleBatch": "base",
     "StreamHealth": "base",
     "StreamInfo": "base",
+    "CurveKeys": "security",
+    "DeviceClock": "peers",
+    "EnvelopeClockSync": "clocksync",
+    "NtpClockSync": "clocksync",
+    "PROTOCOL_VERSION": "protocol",
+    "RobotBridge": "peers",
+    "SensorPublisher": "peers",
+    "SimulatedRobotBackend": "peers",
+    "ZmqFollowers": "zmq_followers",
+    "ZmqLeader": "zmq_leader",
+    "check_endpoint": "security",
+    "generate_keys": "security",
+    "ntp_offset_delay": "clocksync",
 }
 
 __all__ = sorted(_EXPORTS)

@@ -1,0 +1,229 @@
+"""The leader over ZeroMQ: a robot bridge speaking adapters/PROTOCOL.md.
+
+:class:`ZmqLeader` connects a DEALER socket to a bridge's ROUTER socket,
+says HELLO, receives WELCOME (robot name, joint names, current pose),
+synchronises clocks with NTP-style exchanges, sends sequenced commands
+stamped on the session clock, collects ACKs and measured STATEs (mapped
+from the bridge's clock onto the session clock), and exchanges heartbeats.
+When the bridge falls silent for ``timeout_s``, :meth:`alive` turns False
+for good (the runner then stops the session; the bridge, having lost our
+commands and heartbeats, holds position by its watchdog).
+"""
+
+from __future__ import annotations
+
+from collections import deque
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from echoreo.adapters._link import LinkEngine, Peer
+from echoreo.adapters.base import Clock, ClockMap, Command, Leader, LeaderHello, LeaderState
+from echoreo.adapters.protocol import Message, MsgType, encode
+from echoreo.adapters.security import CurveKeys, check_endpoint
+from echoreo.errors import InputError, LeaderLost, ProtocolError
+
+__all__ = ["ZmqLeader"]
+
+
+class _LeaderEngine(LinkEngine):
+    def __init__(self, clock: Clock, **kw: Any):
+        super().__init__(clock, role="leader", **kw)
+        self.welcome: dict[str, Any] | None = None
+        self.states: deque[tuple[dict, np.ndarray, int]] = deque(maxlen=100_000)
+        self.acked_seq = -1
+        self.acks = 0
+        self.rejections: deque[dict] = deque(maxlen=100)
+        self.mode = ""
+        self.lost = False
+        self.errors: deque[dict] = deque(maxlen=100)
+
+    def on_message(self, peer: Peer, msg: Message, t_rx_ns: int) -> None:
+        m = msg.meta
+        if msg.type == MsgType.WELCOME:
+            if self.welcome is None:
+                self.welcome = dict(m)
+                self.mark_ready(peer, t_rx_ns)
+            elif not self.lost:
+                self.mark_ready(peer, t_rx_ns)
+        elif msg.type == MsgType.STATE:
+            self.mode = m["mode"]
+            self.acked_seq = max(self.acked_seq, m["acked_seq"])
+            self.states.append((m, msg.arrays[0], t_rx_ns))
+        elif msg.type == MsgType.ACK:
+            self.acks += 1
+            if m["status"] == "ok":
+                self.acked_seq = max(self.acked_seq, m["seq"])
+            else:
+                self.rejections.append(dict(m))
+        elif msg.type == MsgType.ERROR:
+            self.errors.append(dict(m))
+        elif msg.type == MsgType.BYE:
+            self.lost = True
+            peer.ready = False
+
+    def on_malformed(self, peer: Peer, err: ProtocolError, t_rx_ns: int) -> None:
+        self.errors.append({"code": "malformed", "message": str(err)})
+
+    def on_lost(self, peer: Peer, now_ns: int) -> None:
+        self.lost = True
+
+
+class ZmqLeader(Leader):
+    """A robot bridge reached over ZeroMQ (see adapters/PROTOCOL.md).
+
+    Parameters
+    ----------
+    endpoint : str
+        The bridge's endpoint, e.g. ``"tcp://127.0.0.1:47100"``. Anything but
+        loopback needs ``keys``.
+    keys : CurveKeys, str, Path or None
+        CURVE key folder (see :mod:`echoreo.adapters.security`).
+    heartbeat_s : float
+        Our heartbeat interval, s.
+    timeout_s : float
+        Silence after which the bridge counts as lost, s.
+    connect_timeout_s : float
+        How long :meth:`connect` waits for WELCOME and the first clock sync, real s.
+    sync_interval_s : float
+        Interval of time exchanges with the bridge, s.
+    client : str
+        Our name, sent in HELLO.
+    """
+
+    uses_network = True
+
+    def __init__(self, endpoint: str, *, keys: CurveKeys | str | Path | None = None,
+                 heartbeat_s: float = 0.2, timeout_s: float = 1.0,
+                 connect_timeout_s: float = 5.0, sync_interval_s: float = 1.0,
+                 client: str = "echoreo"):
+        self.keys = CurveKeys(keys) if isinstance(keys, str | Path) else keys
+        check_endpoint(endpoint, self.keys, "connect to")
+        self.endpoint = endpoint
+        self.heartbeat_s = heartbeat_s
+        self.timeout_s = timeout_s
+        self.connect_timeout_s = connect_timeout_s
+        self.sync_interval_s = sync_interval_s
+        self.client = client
+        self._engine: _LeaderEngine | None = None
+        self._peer: Peer | None = None
+        self.joint_names: tuple[str, ...] = ()
+        self._state_seq_seen = -1
+
+    # ------------------------------------------------------------------------------------
+    def connect(self, clock: Clock) -> LeaderHello:
+        """Connect, say HELLO, wait for WELCOME and a first clock sync.
+
+        Raises
+        ------
+        LeaderLost
+            If the bridge does not answer within ``connect_timeout_s`` (or rejects
+            our CURVE key, or reports an error such as ``busy``).
+        """
+        if self._engine is not None:
+            raise RuntimeError("ZmqLeader.connect called twice")
+        eng = _LeaderEngine(clock, keys=self.keys, heartbeat_s=self.heartbeat_s,
+                            timeout_s=self.timeout_s, sync_interval_s=self.sync_interval_s,
+                            client=self.client)
+        self._engine = eng
+        self._peer = peer = eng.add_peer(self.endpoint)
+        eng.start()
+        ok = eng.wait_for(lambda: (eng.welcome is not None and peer.sync.n_exchanges_ >= 4)
+                          or bool(eng.errors) or bool(peer.auth_failure),
+                          self.connect_timeout_s)
+        if not ok or eng.welcome is None or peer.sync.n_exchanges_ < 1:
+            reason = peer.auth_failure or (
+                f"the bridge answered {eng.errors[0]['code']}: {eng.errors[0]['message']}"
+                if eng.errors else f"no answer within {self.connect_timeout_s:g} s")
+            self.close()
+            raise LeaderLost(f"robot bridge at {self.endpoint} not reached: {reason}; "
+                             "is `echoreo bridge` (or your robot's bridge) running there?")
+        w = eng.welcome
+        self.joint_names = tuple(w["joint_names"])
+        q = np.asarray(w["q"], dtype=np.float64)
+        if q.shape != (len(self.joint_names),):
+            self.close()
+            raise ProtocolError(f"WELCOME from {self.endpoint} reports {q.size} joint values "
+                                f"for {len(self.joint_names)} joint names")
+        return LeaderHello(robot=w["robot"], joint_names=self.joint_names, q=q)
+
+    def _require(self) -> tuple[_LeaderEngine, Peer]:
+        if self._engine is None or self._peer is None:
+            raise RuntimeError("ZmqLeader is not connected")
+        return self._engine, self._peer
+
+    def send(self, command: Command) -> None:
+        """Send one command (non-blocking; dropped while the bridge is unreachable)."""
+        eng, peer = self._require()
+        q = np.asarray(command.q, dtype=np.float64)
+        if q.shape != (len(self.joint_names),):
+            raise InputError(f"command {command.seq} has {q.size} joint values; the bridge "
+                             f"has {len(self.joint_names)} joints {self.joint_names}")
+        eng.submit(peer, encode(MsgType.COMMAND, {"seq": int(command.seq),
+                                                  "t_ns": int(command.t_ns)}, q))
+
+    def read_state(self) -> list[LeaderState]:
+        """Measured states received since the previous call, on the session clock."""
+        eng, peer = self._require()
+        out = []
+        with eng.lock:
+            cmap = peer.sync.clock_map()
+            items = list(eng.states)
+            eng.states.clear()
+        for m, q, _t_rx in items:
+            t_dev = int(m["t_dev_ns"])
+            out.append(LeaderState(t_ns=int(cmap.to_session(t_dev)), t_dev_ns=t_dev,
+                                   seq=int(m["seq"]), q=q, acked_seq=int(m["acked_seq"])))
+        return out
+
+    def hold(self) -> None:
+        """Ask the bridge to hold the current position (pause)."""
+        eng, peer = self._require()
+        eng.submit(peer, encode(MsgType.HOLD, {"t_ns": eng.clock.now_ns()}))
+
+    def stop(self, wait_s: float = 0.5) -> None:
+        """Controlled stop: the bridge holds and ignores commands until a new HELLO.
+
+        Waits up to ``wait_s`` for a state confirming mode ``stopped``.
+        """
+        if self._engine is None or self._peer is None:
+            return
+        eng, peer = self._engine, self._peer
+        eng.submit(peer, encode(MsgType.STOP, {"t_ns": eng.clock.now_ns()}))
+        if not eng.lost:
+            eng.wait_for(lambda: eng.mode == "stopped" or eng.lost, wait_s)
+
+    def close(self) -> None:
+        """Send BYE and release the socket; idempotent."""
+        if self._engine is not None:
+            self._engine.close()
+
+    def alive(self) -> bool:
+        """False once the bridge has been silent for ``timeout_s`` (or said BYE)."""
+        if self._engine is None:
+            return False
+        return not self._engine.lost and self._engine.fault is None
+
+    # ---- extras for the live view and tests ----------------------------------------------
+    @property
+    def bridge_mode(self) -> str:
+        """The mode in the bridge's latest STATE (``follow``, ``hold``, ``watchdog``, ...)."""
+        return self._engine.mode if self._engine is not None else ""
+
+    def clock_map(self) -> ClockMap:
+        """Current bridge-to-session clock map."""
+        _, peer = self._require()
+        with self._engine.lock:  # type: ignore[union-attr]
+            return peer.sync.clock_map()
+
+    def link_health(self) -> dict[str, Any]:
+        """Counters of the link: acks, rejections, malformed, dropped sends, last errors."""
+        eng, peer = self._require()
+        with eng.lock:
+            cmap = peer.sync.clock_map()
+            return {"acks": eng.acks, "acked_seq": eng.acked_seq,
+                    "rejections": list(eng.rejections), "malformed": peer.malformed,
+                    "send_dropped": peer.send_dropped, "errors": list(eng.errors),
+                    "offset_ns": cmap.offset_ns, "uncertainty_ns": cmap.uncertainty_ns,
+                    "mode": eng.mode, "alive": self.alive()}
