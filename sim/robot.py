@@ -656,6 +656,7 @@ def _build(data: Any, text: str, source: str, file: str) -> Robot:
                 ck.add(_vloc(spec, key) if key in spec else _loc(spec),
                        f"{where}: '{key}' must name a link", f"add '{key}: <link name>'")
                 ok = False
+                v = None
             j[key] = v
         if ok:
             if j["child"] in children:
