@@ -148,6 +148,8 @@ class LeaderSim:
         if np.any(~(dts > 0)) or not np.all(np.isfinite(q_cmd)):
             raise ValueError("t must increase strictly and q_cmd must be finite")
         true = np.empty((n, self.robot.n_joints))
+        if n == 0:
+            return true
         q = self.q
         true[0] = q
         # A loop over samples is inherent (each state depends on the last); the

@@ -200,7 +200,7 @@ def joint_derivatives(t: ArrayLike, q: ArrayLike) -> tuple[NDArray, NDArray]:
         raise ValueError(f"q must have shape (n, n_joints); got shape {q.shape}")
     t = _check_t(t, q.shape[0])
     n = q.shape[0]
-    if n == 1:
+    if n <= 1:
         return np.zeros_like(q), np.zeros_like(q)
     if n == 2:
         rate = (q[1] - q[0]) / (t[1] - t[0])
