@@ -200,6 +200,10 @@ class _Feed:
     seq: NDArray[np.int64]
     data: NDArray[np.float64]
     cursor: int = 0
+    last: tuple | None = None      # (seq, t_dev_ns, data row) of the last delivered sample
+    held: int = 0                  # hold samples made during the present pause
+    delivered: int = 0             # samples handed out
+    last_t_ns: int | None = None   # session time of the last sample handed out
 
 
 class SimulatedFollowers(FollowerSource):
@@ -278,6 +282,8 @@ class SimulatedFollowers(FollowerSource):
         self.glitch_every_ns = None if glitch_every_s is None else round(glitch_every_s * 1e9)
         self._next_glitch = self.glitch_every_ns
         self._glitches = 0
+        self._frozen_at: int | None = None
+        self._latency_ns = round(self.latency_s * 1e9)
         self.recording: Any = None
         self._clock: Clock | None = None
         self._feeds: dict[str, _Feed] = {}
@@ -326,19 +332,13 @@ class SimulatedFollowers(FollowerSource):
         for name, s in rec.streams.items():
             t_dev_ns = np.rint(np.asarray(s.t_dev) * 1e9).astype(np.int64)
             t_ns = self._map.to_session(t_dev_ns)
-            keep = np.ones(t_ns.shape[0], dtype=bool)
-            for d in self.dropout:
-                if d.stream == name:
-                    a = round(d.start_s * 1e9)
-                    b = a + round(d.duration_s * 1e9)
-                    keep &= ~((t_ns >= a) & (t_ns < b))
             rate = float(s.rate_hz) if math.isfinite(s.rate_hz) else float(DEFAULT_RATES[name])
             info = StreamInfo(name=name, kind=s.kind, channels=tuple(s.channels),
                               units=tuple(s.units), rate_hz=rate,
                               source=f"simulated virtual participant ({self._profile_name()})")
-            self._feeds[name] = _Feed(info, t_ns[keep] + latency_ns, t_ns[keep],
-                                      t_dev_ns[keep], np.asarray(s.seq, dtype=np.int64)[keep],
-                                      np.asarray(s.data, dtype=float)[keep])
+            self._feeds[name] = _Feed(info, t_ns + latency_ns, t_ns, t_dev_ns,
+                                      np.asarray(s.seq, dtype=np.int64).copy(),
+                                      np.asarray(s.data, dtype=float))
             infos.append(info)
         return infos
 
@@ -346,22 +346,108 @@ class SimulatedFollowers(FollowerSource):
         return self.profile if isinstance(self.profile, str) else "custom profile"
 
     def poll(self) -> list[SampleBatch]:
-        """Samples whose delivery time the session clock has passed since the last call."""
+        """Samples whose delivery time the session clock has passed since the last call.
+
+        While the robot is paused (:meth:`pause_at`), the virtual person holds
+        still: every stream goes on sampling on its device clock, repeating its
+        last sample, until :meth:`resume_at`.
+        """
         if self._clock is None:
             return []
         now = self._clock.now_ns()
+        limit = now if self._frozen_at is None else min(now, self._frozen_at + self._latency_ns)
         out = []
         for name, f in self._feeds.items():
-            j = int(np.searchsorted(f.deliver_ns, now, side="right"))
+            j = int(np.searchsorted(f.deliver_ns, limit, side="right"))
             if j > f.cursor:
                 sl = slice(f.cursor, j)
-                out.append(SampleBatch(name, f.t_ns[sl].copy(), f.t_dev_ns[sl].copy(),
-                                       f.seq[sl].copy(), f.data[sl].copy()))
+                ok = ~self._dropped_mask(name, f.t_ns[sl])
+                if ok.any():
+                    out.append(SampleBatch(name, f.t_ns[sl][ok], f.t_dev_ns[sl][ok],
+                                           f.seq[sl][ok], f.data[sl][ok]))
+                    f.delivered += int(ok.sum())
+                    f.last_t_ns = int(f.t_ns[sl][ok][-1])
                 f.cursor = j
+                f.last = (int(f.seq[j - 1]), int(f.t_dev_ns[j - 1]), f.data[j - 1].copy())
+            if self._frozen_at is not None and f.last is not None:
+                out.extend(self._hold_samples(f, now))
         if self._next_glitch is not None and now >= self._next_glitch:
             self._next_glitch += self.glitch_every_ns
             out.extend(self._glitch())
         return out
+
+    def _hold_samples(self, f: _Feed, now: int) -> list[SampleBatch]:
+        period = 1e9 / f.info.rate_hz
+        seq0, tdev0, row = f.last
+        rows = []
+        while True:
+            k = f.held + 1
+            t_dev = tdev0 + round(k * period)
+            t = int(self._map.to_session(t_dev))
+            if t + self._latency_ns > now:
+                break
+            f.held = k
+            if not self._dropped(f.info.name, t):
+                rows.append((t, t_dev, seq0 + k))
+        if not rows:
+            return []
+        t, td, sq = (np.array(c, dtype=np.int64) for c in zip(*rows, strict=True))
+        f.delivered += len(rows)
+        f.last_t_ns = int(t[-1])
+        return [SampleBatch(f.info.name, t, td, sq, np.repeat(row[None, :], len(rows), axis=0))]
+
+    def _dropped(self, stream: str, t_ns: int) -> bool:
+        return bool(self._dropped_mask(stream, np.array([t_ns]))[0])
+
+    def _dropped_mask(self, stream: str, t_ns: np.ndarray) -> np.ndarray:
+        """True where a sample falls in one of the stream's dropout windows."""
+        out = np.zeros(t_ns.shape[0], dtype=bool)
+        for d in self.dropout:
+            if d.stream == stream:
+                a = round(d.start_s * 1e9)
+                out |= (t_ns >= a) & (t_ns < a + round(d.duration_s * 1e9))
+        return out
+
+    def pause_at(self, t_ns: int) -> None:
+        """The robot holds from session time ``t_ns``: the virtual person holds still too.
+
+        A virtual person copies what the robot does, so when the robot pauses
+        the rest of the person's planned motion waits as well (see :meth:`resume_at`).
+        """
+        if self._frozen_at is None:
+            self._frozen_at = int(t_ns)
+            for f in self._feeds.values():
+                f.held = 0
+
+    def resume_at(self, t_ns: int) -> None:
+        """The robot moves again: the rest of every stream follows after the held samples.
+
+        The samples not yet due move later on their device clocks by the
+        number of sample periods held so far (sequence numbers and device
+        times shifted alike), so each stream stays on its device's regular
+        grid and no sample is lost or repeated.
+
+        Parameters
+        ----------
+        t_ns : int
+            Session time of the resume, ns (for the record; the shift is the
+            number of hold samples already made by :meth:`poll`).
+        """
+        if self._frozen_at is None:
+            return
+        for f in self._feeds.values():
+            if f.last is None or f.held == 0:
+                continue
+            rest = slice(f.cursor, None)
+            shift_dev = round(f.held * 1e9 / f.info.rate_hz)
+            f.t_dev_ns[rest] += shift_dev
+            f.seq[rest] += f.held
+            f.t_ns[rest] = self._map.to_session(f.t_dev_ns[rest])
+            f.deliver_ns[rest] = f.t_ns[rest] + self._latency_ns
+            f.last = (f.last[0] + f.held, f.last[1] + round(f.held * 1e9 / f.info.rate_hz),
+                      f.last[2])
+            f.held = 0
+        self._frozen_at = None
 
     def _glitch(self) -> list[SampleBatch]:
         fed = [f for f in self._feeds.values() if f.cursor >= 2]
@@ -385,10 +471,10 @@ class SimulatedFollowers(FollowerSource):
         """Samples delivered, sequence gaps, last time, latency, offset per stream."""
         out = {}
         for name, f in self._feeds.items():
-            n = f.cursor
-            dropped = int(f.seq[n - 1] - f.seq[0] + 1 - n) if n else 0
+            n = f.delivered
+            span = int(f.last[0] - f.seq[0] + 1) if f.last is not None else 0
             out[name] = StreamHealth(
-                samples=n, dropped=dropped, last_t_ns=int(f.t_ns[n - 1]) if n else None,
+                samples=n, dropped=max(span - n, 0), last_t_ns=f.last_t_ns,
                 latency_ns=self.latency_s * 1e9, offset_ns=float(self._map.offset_ns),
                 offset_uncertainty_ns=0.0, rate_hz=f.info.rate_hz)
         return out

@@ -441,6 +441,7 @@ class _Session:
         self.status = SessionStatus(study=plan.study, participant=code,
                                     n_items=len(plan.items))
         self._stop_request: str | None = None
+        self._stop_reason: str | None = None
         self._pause_request = False
         self._ctrl_c = False
 
@@ -669,6 +670,10 @@ class _Session:
             nonlocal paused_since_ns
             if not paused_for:
                 _safe(leader.hold)
+                for src in sources:  # simulated participants hold still with the robot
+                    hook = getattr(src, "pause_at", None)
+                    if hook is not None:
+                        _safe(lambda hook=hook: hook(now_ns))
                 paused_since_ns = now_ns
                 rec.event(now_ns, "pause", None, {"reason": reason, "program_tick": i})
                 self.status.safety = f"holding (paused: {reason})"
@@ -679,6 +684,10 @@ class _Session:
             if reason in paused_for:
                 paused_for.discard(reason)
                 if not paused_for:
+                    for src in sources:
+                        hook = getattr(src, "resume_at", None)
+                        if hook is not None:
+                            _safe(lambda hook=hook: hook(now_ns))
                     rec.event(now_ns, "resume", None,
                               {"reason": reason, "paused_s": (now_ns - paused_since_ns) * 1e-9})
                     self.status.safety = "moving"
@@ -725,12 +734,16 @@ class _Session:
                     if self._stop_request == "stop" and stop_ramp is None:
                         from echoreo.runner.ramps import ramp
 
-                        why = "Ctrl-C" if self._ctrl_c else "operator"
+                        why = self._stop_reason or ("Ctrl-C" if self._ctrl_c else "operator")
                         _, qr = ramp(robot, last_q, np.asarray(robot.rest, dtype=float), rate,
                                      plan.ramp_speed_fraction)
                         stop_ramp, stop_i = qr[1:] if len(qr) > 1 else qr, 0
-                        paused_for.clear()
-                        outcome = "stopped"
+                        if paused_for:
+                            resume_all = set(paused_for)
+                            for r in resume_all:
+                                resume(r, now)
+                        outcome = "silence" if self._stop_reason == "silent stream" \
+                            else "stopped"
                         rec.event(now, "stop", None, {"reason": why, "controlled": True,
                                                       "program_tick": i,
                                                       "ramp_s": len(stop_ramp) / rate})
@@ -814,7 +827,7 @@ class _Session:
                             > UNATTENDED_SILENCE_LIMIT_S * 1e9):
                         warn("a silent stream did not come back; stopping", "fault")
                         self._stop_request = "stop"
-                        outcome = "silence"
+                        self._stop_reason = "silent stream"
 
                     # grades
                     if grader is not None:
