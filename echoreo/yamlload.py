@@ -20,6 +20,10 @@ from echoreo.errors import InputError, Problem
 
 __all__ = ["LDict", "LList", "Loc", "load_yaml", "loc_of"]
 
+# libyaml's C parser, when PyYAML was built with it, composes the same nodes with
+# the same marks about ten times faster than the pure-Python one.
+_COMPOSE_LOADER = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
+
 
 class Loc(tuple):
     """A ``(file, line, column)`` triple, 1-based."""
@@ -177,7 +181,7 @@ def load_yaml(source: str | Path, *, text: str | None = None, what: str = "file"
         except OSError as exc:
             raise InputError(Problem(f"cannot read {what}: {exc.strerror}", name)) from exc
     try:
-        node = yaml.compose(text, Loader=yaml.SafeLoader)
+        node = yaml.compose(text, Loader=_COMPOSE_LOADER)
     except yaml.MarkedYAMLError as exc:
         mark = exc.problem_mark or exc.context_mark
         line = mark.line + 1 if mark else None
