@@ -862,18 +862,12 @@ def _derive_mirror_signs(joints: list[dict], base: str, mirror_index: NDArray,
     axis must be parallel to the reflected axis.
     """
     R = {base: np.eye(3)}
-    by_child = {j["child"]: j for j in joints}
-    order = []
     pending = list(joints)
-    done = {base}
     while pending:
-        nxt = [j for j in pending if j["parent"] in done]
+        nxt = [j for j in pending if j["parent"] in R]
         for j in nxt:
             R[j["child"]] = R[j["parent"]] @ j["Ro"]
-            done.add(j["child"])
-            order.append(j)
         pending = [j for j in pending if j not in nxt]
-    del by_child, order
     axes = [R[j["child"]] @ j["axis"] for j in joints]
     for i, j in enumerate(joints):
         m = int(mirror_index[i])
