@@ -22,6 +22,7 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
+import yaml
 
 from echoreo.errors import ChoreographyError, InputError, Problem
 from echoreo.runner.interpolate import INTERPOLATIONS, evaluate
@@ -408,10 +409,11 @@ class Choreography:
             hint = "lengthen or slow down the step before this one"
             return loc.problem(text, hint)
         new_duration = math.ceil(move.duration * stretch * 100) / 100
-        new_tempo = math.floor(step.tempo / stretch * 100) / 100
-        hint = (f"lengthen move {move.name!r} to at least {new_duration:.2f} s "
-                f"(its last keyframe is at {move.duration:.2f} s), set this step's tempo "
-                f"to {new_tempo:.2f} or less (now {step.tempo:g}), or reduce the amplitude "
+        written_tempo = step.tempo / self.tempo  # the step's own factor, as in the file
+        new_tempo = _round_down(written_tempo / stretch)
+        hint = (f"lengthen move {move.name!r} to at least {new_duration:.2f} s (stretch its "
+                f"keyframe times; the last is at {move.duration:.2f} s), set this step's tempo "
+                f"to {new_tempo:g} or less (now {written_tempo:g}), or reduce the amplitude "
                 f"of {joint}")
         if kind == "acceleration" and move.interpolation == "linear":
             hint += ("; linear interpolation changes velocity abruptly at every keyframe, "
@@ -470,6 +472,12 @@ class Choreography:
 
 # ------------------------------------------------------------------------------------------
 # parsing
+
+
+def _round_down(x: float, digits: int = 3) -> float:
+    """``x > 0`` rounded down to ``digits`` significant digits."""
+    scale = 10.0 ** (digits - 1 - math.floor(math.log10(x)))
+    return math.floor(x * scale) / scale
 
 
 def _closest(word: str, options, what: str) -> str:
@@ -1089,6 +1097,25 @@ class _Parser:
         return start
 
 
+def _locate_reader_error(exc: InputError, name: str) -> list[Problem]:
+    """Give a line and column to YAML reader errors (bad characters), which PyYAML
+    reports by character position only."""
+    cause = exc.__cause__
+    if not isinstance(cause, yaml.reader.ReaderError) or exc.problems[0].line is not None:
+        return exc.problems
+    try:
+        text = Path(name).read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError):
+        return exc.problems
+    before = text[: cause.position]
+    line = before.count("\n") + 1
+    column = cause.position - (before.rfind("\n") + 1) + 1
+    char = cause.character
+    shown = f"#x{ord(char):04x}" if isinstance(char, str) else repr(char)
+    return [Problem(f"not valid YAML: the character {shown} is not allowed in YAML text",
+                    name, line, column, "delete it or replace it with a printable character")]
+
+
 def load_choreography(path: str | Path, robot: Any = None) -> Choreography:
     """Read, validate and limit-check a choreography file.
 
@@ -1121,7 +1148,7 @@ def load_choreography(path: str | Path, robot: Any = None) -> Choreography:
     try:
         doc = load_yaml(path, what="choreography")
     except InputError as exc:
-        raise ChoreographyError(exc.problems) from exc
+        raise ChoreographyError(_locate_reader_error(exc, name)) from exc
     try:
         text = Path(path).read_text(encoding="utf-8")
     except OSError as exc:  # vanished between the two reads
