@@ -40,7 +40,7 @@ class GradeConfig:
     spread     :math:`\\min(q, 1/q)`                     IQR ratio q
     wasserstein :math:`e^{-W / s_W}`                    normalised W1
     shape      :math:`e^{-D / s_D}`                     shape distance D
-    determinism :math:`\\mathrm{DET}`                    cross-recurrence DET
+    determinism :math:`\\mathrm{DET}` (0 if RR = 0)       cross-recurrence DET
     correlation :math:`\\max(0, \\rho)`                   peak lagged correlation
     lag        :math:`e^{-\\ell / s_\\ell}`               lag ℓ (s)
     variability :math:`e^{-\\mathrm{CV} / s_V}`          across-repetition CV
@@ -64,9 +64,10 @@ class GradeConfig:
     lag_limit_s : float, s
         ``lag`` flag above this lag.
     amplitude_low, amplitude_high : float
-        ``amplitude_low`` below, ``amplitude_high`` above these median ratios.
+        ``amplitude_low`` below, ``amplitude_high`` above these motion ratios
+        (follower RMS motion over the leader's, see METHODS.md 3.3).
     asymmetry_limit : float
-        ``asymmetry`` when the two wrists' median ratios differ by more than
+        ``asymmetry`` when the two wrists' motion ratios differ by more than
         this factor.
     skipped_fraction : float
         ``skipped`` when the follower's RMS motion is below this fraction of
@@ -85,20 +86,20 @@ class GradeConfig:
         Band of a record that could not be graded.
     """
 
-    w_amplitude: float = 0.25
+    w_amplitude: float = 0.20
     w_spread: float = 0.10
     w_wasserstein: float = 0.10
     w_shape: float = 0.20
-    w_determinism: float = 0.10
-    w_correlation: float = 0.15
-    w_lag: float = 0.10
+    w_determinism: float = 0.05
+    w_correlation: float = 0.20
+    w_lag: float = 0.15
     w_variability: float = 0.0
     wasserstein_scale: float = 0.5
     shape_scale: float = 0.5
     variability_scale: float = 0.5
-    lag_scale_s: float = 2.0
-    still_scale_imu: float = 0.3
-    still_scale_head: float = 0.05
+    lag_scale_s: float = 1.0
+    still_scale_imu: float = 0.4
+    still_scale_head: float = 0.1
     lag_limit_s: float = 1.0
     amplitude_low: float = 0.5
     amplitude_high: float = 2.0
@@ -106,7 +107,7 @@ class GradeConfig:
     skipped_fraction: float = 0.15
     leader_still_imu: float = 0.05
     leader_still_head: float = 0.01
-    head_moving_limit: float = 0.05
+    head_moving_limit: float = 0.07
     bands: tuple[tuple[float, str], ...] = (
         (85.0, "faithful"), (70.0, "close"), (50.0, "loose"), (30.0, "weak"),
         (0.0, "absent"))
@@ -160,7 +161,7 @@ def component_scores(metrics: Mapping[str, float], cfg: GradeConfig) -> dict[str
     ----------
     metrics : mapping
         ``median_ratio``, ``iqr_ratio``, ``wasserstein``, ``shape_distance``,
-        ``crqa_DET``, ``correlation``, ``lag_s``, ``variability`` (missing or
+        ``crqa_RR``, ``crqa_DET``, ``correlation``, ``lag_s``, ``variability`` (missing or
         NaN entries give a NaN score, which the grade leaves out).
     cfg : GradeConfig
 
@@ -175,6 +176,8 @@ def component_scores(metrics: Mapping[str, float], cfg: GradeConfig) -> dict[str
         return float("nan") if v is None else float(v)
 
     det = get("crqa_DET")
+    if get("crqa_RR") == 0.0:
+        det = 0.0  # no cross-recurrence at all: the trajectories never come close
     rho = get("correlation")
     return {
         "amplitude": _ratio_score(get("median_ratio")),
@@ -219,9 +222,10 @@ def still_grade(follower_rms: float, kind: str, cfg: GradeConfig) -> float:
 
     The follower should stay still too, so the grade falls with the
     follower's RMS motion :math:`m` (rad/s for gyroscopes, rad for head
-    angles):
+    angles), slowly near the sensor noise floor and without saturating for
+    large movements (so that more movement always costs more):
 
-    .. math:: G = 100 \\, e^{-m / s_\\mathrm{still}}
+    .. math:: G = \\frac{100}{1 + (m / s_\\mathrm{still})^2}
 
     Parameters
     ----------
@@ -239,7 +243,7 @@ def still_grade(follower_rms: float, kind: str, cfg: GradeConfig) -> float:
     """
     if not math.isfinite(follower_rms):
         return float("nan")
-    return 100.0 * math.exp(-max(follower_rms, 0.0) / cfg.still_scale(kind))
+    return 100.0 / (1.0 + (max(follower_rms, 0.0) / cfg.still_scale(kind)) ** 2)
 
 
 def band_for(grade: float, cfg: GradeConfig) -> str:
@@ -255,8 +259,9 @@ def band_for(grade: float, cfg: GradeConfig) -> str:
 def asymmetric(ratio_left: float, ratio_right: float, cfg: GradeConfig) -> bool:
     """Whether the two arms moved unlike each other in one repetition.
 
-    Each wrist's median ratio already divides by the leader's paired wrist,
-    so the comparison is relative to the leader's own left/right relation:
+    Each wrist's motion ratio (follower RMS motion over the leader's) already
+    divides by the leader's paired wrist, so the comparison is relative to
+    the leader's own left/right relation:
 
     .. math:: \\lvert \\ln(r_\\mathrm{left} / r_\\mathrm{right}) \\rvert > \\ln(a)
 
@@ -265,8 +270,7 @@ def asymmetric(ratio_left: float, ratio_right: float, cfg: GradeConfig) -> bool:
     Parameters
     ----------
     ratio_left, ratio_right : float
-        Median ratios (follower / leader) of the two wrist streams; a skipped
-        arm may pass 0.
+        Motion ratios (follower / leader) of the two wrist streams.
     cfg : GradeConfig
 
     Returns

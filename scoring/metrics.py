@@ -231,8 +231,9 @@ def compare_repetition(leader: np.ndarray, follower: np.ndarray, dim: int, delay
        first :math:`k = \\min(3, m)` components (Broomhead & King 1986).
     4. Distances from the origin, their median and IQR ratios and the
        Wasserstein distance between the two distance distributions; the
-       shape distance; cross recurrence of the two projected trajectories at
-       radius :math:`\\varepsilon = f \\cdot \\max_{i,j} \\lVert p^L_i - p^L_j\\rVert`
+       shape distance; cross recurrence of the two projected trajectories
+       (Euclidean norm, no Theiler window) at radius
+       :math:`\\varepsilon = f \\cdot \\max_{i,j} \\lVert p^L_i - p^L_j\\rVert`
        (``radius_fraction`` :math:`f` of the leader's phase-space diameter;
        Marwan et al. 2007, section 3.2.1, advise no more than 10 %).
 
@@ -302,7 +303,7 @@ def compare_repetition(leader: np.ndarray, follower: np.ndarray, dim: int, delay
     w = wasserstein_1d(df, dl) / size if size > 0 else float("nan")
     diameter = float(pdist(pl).max())
     radius = radius_fraction * diameter
-    rq = rqa(pl, pf, radius=radius, lmin=lmin, vmin=vmin, theiler=0)
+    rq = rqa(pl, pf, radius=radius, lmin=lmin, vmin=vmin, theiler=0, norm="euclidean")
     crqa = {key: float(rq[key]) for key in ("RR", "DET", "L", "Lmax", "ENTR", "LAM", "TT")}
     if k < 3:
         pad = np.zeros((pl.shape[0], 3 - k))

@@ -1,0 +1,942 @@
+"""From a session to per-repetition score records.
+
+:func:`score_session` reads one session file; :func:`score_data` scores a
+:class:`SessionData` held in memory (a session file's content, or simulator
+output assembled with :func:`session_from_arrays`); :func:`score_study`
+chooses the study-level embedding parameters and then scores every session.
+Per-session scoring is a pure function of ``(path, params)``, so a process
+pool can run it.
+
+Pipeline (``scoring/METHODS.md`` sections 2 and 3):
+
+1. spans of kind ``move`` from the session's ``spans`` table;
+2. one uniform grid on the session clock at ``params.rate_hz``; leader joints,
+   follower channels and recorded leader sensors resampled onto it without
+   bridging gaps longer than ``params.max_gap_s``;
+3. leader reference channels per pair (:mod:`echoreo.scoring.reference`);
+4. the same zero-phase low-pass on both (:func:`~echoreo.scoring.preprocess.lowpass`);
+5. per pair and move, the leader's first principal axis of the three channels;
+   both projected onto it: the one-dimensional signals;
+6. per step and pair, the follower lag by cross-correlation (:mod:`.align`);
+7. per repetition and pair, the metrics (:mod:`.metrics`), grade and flags
+   (:mod:`.grade`); then the cross-stream flags and the variability.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Iterable, Mapping, Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from echoreo.errors import InputError, Problem, ScoringInputError
+from echoreo.scoring.align import estimate_lag, lagged_correlation
+from echoreo.scoring.grade import (
+    FLAGS,
+    asymmetric,
+    band_for,
+    component_scores,
+    grade_from_components,
+    still_grade,
+)
+from echoreo.scoring.metrics import compare_repetition
+from echoreo.scoring.params import EmbeddingChoice, ScoringParams, choose_embedding, combine_choices
+from echoreo.scoring.preprocess import lowpass, principal_axis, resample_uniform
+from echoreo.scoring.reference import (
+    KIND_CHANNELS,
+    KIND_SIGNAL,
+    mirror_site,
+    reflect_lateral,
+    virtual_references,
+)
+
+__all__ = [
+    "RECORD_FIELDS",
+    "SessionData",
+    "SessionScores",
+    "StreamArrays",
+    "StudyScores",
+    "default_pairs",
+    "read_session",
+    "score_data",
+    "score_session",
+    "score_study",
+    "session_embedding",
+    "session_from_arrays",
+]
+
+#: the score-record fields, in order (DEVELOPERS.md, "Score records")
+RECORD_FIELDS: tuple[str, ...] = (
+    "session", "participant", "study", "stream", "kind", "site", "leader_site",
+    "choreography", "move", "step", "repetition", "t_start", "t_end", "lag_s",
+    "median_ratio", "iqr_ratio", "wasserstein", "shape_distance", "crqa_RR", "crqa_DET",
+    "crqa_L", "crqa_Lmax", "crqa_ENTR", "crqa_LAM", "crqa_TT", "variability", "grade",
+    "band", "flags", "delay", "dim", "signal", "rate_hz", "filter_cutoff_hz", "filter_order",
+)
+_METRICS = ("median_ratio", "iqr_ratio", "wasserstein", "shape_distance", "crqa_RR",
+            "crqa_DET", "crqa_L", "crqa_Lmax", "crqa_ENTR", "crqa_LAM", "crqa_TT")
+_NAN = float("nan")
+
+
+# --------------------------------------------------------------------------- data holders
+
+
+@dataclass(frozen=True, eq=False)
+class StreamArrays:
+    """One recorded stream in memory.
+
+    Attributes
+    ----------
+    name, kind : str
+    channels : tuple of str
+    t : ndarray, shape (n,), s
+        Session-clock times.
+    data : ndarray, shape (n, c)
+        Values in SI units (rad, rad/s, m/s²).
+    """
+
+    name: str
+    kind: str
+    channels: tuple[str, ...]
+    t: np.ndarray
+    data: np.ndarray
+
+    def columns(self, names: Sequence[str]) -> np.ndarray | None:
+        """The given channels as an array ``(n, len(names))``, or None if one is missing."""
+        idx = {c: i for i, c in enumerate(self.channels)}
+        if any(c not in idx for c in names):
+            return None
+        return self.data[:, [idx[c] for c in names]]
+
+
+@dataclass(frozen=True, eq=False)
+class SessionData:
+    """Everything scoring needs from one session.
+
+    Attributes
+    ----------
+    session : str
+        Session identifier (the file name without suffix).
+    participant, study : str or None
+    mode : {"mirror", "anatomical"}
+    robot : Robot
+        The leader's robot model.
+    pairs : tuple of dict
+        ``stream``, ``kind``, ``site``, ``leader_site`` (optional ``leader_stream``).
+    spans : DataFrame
+        ``choreography, step, move, repetition, kind, t_start, t_end`` (s).
+    leader_t : ndarray, shape (m,), s
+    leader_q : ndarray, shape (m, n_joints), rad
+        Leader joints in robot joint order (empty when not recorded).
+    streams : dict of str to StreamArrays
+        Follower streams and recorded leader sensor streams.
+    path : str or None
+        Where the session was read from.
+    problems : tuple of Problem
+        What reading found wrong (missing streams, channels, ...).
+    """
+
+    session: str
+    participant: str | None
+    study: str | None
+    mode: str
+    robot: Any
+    pairs: tuple[dict, ...]
+    spans: pd.DataFrame
+    leader_t: np.ndarray
+    leader_q: np.ndarray
+    streams: dict[str, StreamArrays]
+    path: str | None = None
+    problems: tuple[Problem, ...] = ()
+
+
+@dataclass(eq=False)
+class SessionScores:
+    """Scores of one session.
+
+    Attributes
+    ----------
+    session : str
+    path : str or None
+    records : DataFrame
+        One row per repetition × paired stream, columns :data:`RECORD_FIELDS`.
+    problems : list of Problem
+        Located messages about everything that could not be scored as asked.
+    params : ScoringParams
+        The parameters used (with the embedding actually used).
+    details : list of dict or None
+        With ``details=True``: per record (same order), ``t`` (leader window
+        times, s), ``leader_signal`` and ``follower_signal`` (aligned 1-D
+        signals, follower shifted by the lag), ``leader_pc`` and
+        ``follower_pc`` (n, 3), ``leader_dist`` and ``follower_dist`` (n,),
+        ``axis`` (3,), ``components`` (component scores), ``correlation``,
+        ``rms_leader``, ``rms_follower``, ``motion_ratio``; arrays are None where
+        not computed.
+    """
+
+    session: str
+    path: str | None
+    records: pd.DataFrame
+    problems: list[Problem]
+    params: ScoringParams
+    details: list[dict] | None = None
+
+    def detail(self, index: int) -> dict:
+        """Plot details of record ``index`` (requires ``details=True`` when scoring)."""
+        if self.details is None:
+            raise ValueError("score with details=True to keep trajectories for plots")
+        return self.details[index]
+
+
+@dataclass(eq=False)
+class StudyScores:
+    """Scores of a study: every session scored with one set of embedding parameters.
+
+    Attributes
+    ----------
+    sessions : list of SessionScores
+    params : ScoringParams
+        With the study-level embedding.
+    per_session : list of dict of str to EmbeddingChoice
+        Each session's own choice, from which the study's was taken.
+    records : DataFrame
+        All sessions' records, concatenated.
+    problems : list of Problem
+    """
+
+    sessions: list[SessionScores]
+    params: ScoringParams
+    per_session: list[dict]
+    records: pd.DataFrame = field(default_factory=pd.DataFrame)
+    problems: list[Problem] = field(default_factory=list)
+
+
+# --------------------------------------------------------------------------- reading
+
+
+def default_pairs(stream_names: Iterable[str], mode: str) -> tuple[dict, ...]:
+    """Pairs for the simulator's default streams (``*_wrist_imu``, ``head_pose``).
+
+    Parameters
+    ----------
+    stream_names : iterable of str
+    mode : {"mirror", "anatomical"}
+
+    Returns
+    -------
+    tuple of dict
+        ``right_wrist_imu`` pairs with the leader's ``left_wrist`` in mirror mode
+        and ``right_wrist`` in anatomical mode; ``head_pose`` with ``head``.
+    """
+    out = []
+    for name in stream_names:
+        if name.endswith("_wrist_imu"):
+            site = name[: -len("_imu")]
+            lead = mirror_site(site) if mode == "mirror" else site
+            out.append({"stream": name, "kind": "imu", "site": site, "leader_site": lead})
+        elif name == "head_pose":
+            out.append({"stream": name, "kind": "head_pose", "site": "head",
+                        "leader_site": "head"})
+    return tuple(out)
+
+
+def session_from_arrays(robot: Any, t: np.ndarray, q: np.ndarray, spans: pd.DataFrame,
+                        streams: Mapping[str, Any], *, mode: str,
+                        pairs: Sequence[Mapping[str, str]] | None = None,
+                        session: str = "session", participant: str | None = None,
+                        study: str | None = None) -> SessionData:
+    """Assemble a :class:`SessionData` from arrays (for example simulator output).
+
+    Parameters
+    ----------
+    robot : Robot
+    t : ndarray, shape (m,), s
+        Leader sample times on the session clock.
+    q : ndarray, shape (m, n_joints), rad
+        Leader joints (commanded or measured), robot joint order.
+    spans : DataFrame
+        The timeline's spans (``step, move, repetition, kind, t_start, t_end``;
+        ``choreography`` optional).
+    streams : mapping of str to stream
+        Objects with ``name``, ``kind``, ``channels``, ``data`` and session-clock
+        times ``t`` (``echoreo.sim.SimStream`` or :class:`StreamArrays`).
+    mode : {"mirror", "anatomical"}
+    pairs : sequence of mapping, optional
+        Default :func:`default_pairs`.
+    session, participant, study : str
+
+    Returns
+    -------
+    SessionData
+    """
+    arrays = {}
+    for name, s in streams.items():
+        ts = getattr(s, "t", None)
+        if ts is None:
+            raise ScoringInputError(f"stream {name!r} has no session-clock times 't'")
+        arrays[name] = StreamArrays(name, s.kind, tuple(s.channels), np.asarray(ts, float),
+                                    np.asarray(s.data, float))
+    sp = spans.copy()
+    if "choreography" not in sp.columns:
+        sp["choreography"] = ""
+    return SessionData(session, participant, study, mode, robot,
+                       tuple(dict(p) for p in (pairs if pairs is not None
+                                               else default_pairs(arrays, mode))),
+                       sp, np.asarray(t, float), np.asarray(q, float), arrays)
+
+
+def _robot_from_meta(meta: Mapping[str, Any], path: str):
+    from echoreo.sim import load_robot, parse_robot
+
+    text = meta.get("robot")
+    if isinstance(text, str) and text.strip():
+        return parse_robot(text, source=f"{path} (robot snapshot)")
+    name = meta.get("robot_name")
+    if isinstance(name, str) and name:
+        return load_robot(name)
+    raise ScoringInputError(Problem(
+        "the session file holds no robot snapshot (meta 'robot') and no 'robot_name'", path,
+        hint="the leader's virtual sensors need the robot model; record the session with "
+             "echoreo session, or add the robot YAML to meta"))
+
+
+def read_session(path_or_sessionfile: Any, params: ScoringParams | None = None) -> SessionData:
+    """Read what scoring needs from a session file.
+
+    Parameters
+    ----------
+    path_or_sessionfile : str, Path or SessionFile
+    params : ScoringParams, optional
+        ``leader_source`` decides between ``leader_state`` and ``leader_command``.
+
+    Returns
+    -------
+    SessionData
+        Missing follower streams or channels become entries of ``problems``
+        (the pair stays, so its repetitions are recorded as ``missing_data``).
+
+    Raises
+    ------
+    SessionFileError
+        The file cannot be read as a session file.
+    ScoringInputError
+        No robot model, no leader joints, no pairs or no move spans.
+    """
+    from echoreo.sessionfile import SessionFile
+
+    params = params or ScoringParams()
+    own = not isinstance(path_or_sessionfile, SessionFile)
+    sf = SessionFile(path_or_sessionfile) if own else path_or_sessionfile
+    try:
+        path = str(sf.path)
+        meta = sf.meta
+        problems: list[Problem] = []
+        robot = _robot_from_meta(meta, path)
+        available = set(sf.stream_names())
+        order = {"state": ["leader_state"], "command": ["leader_command"],
+                 "auto": ["leader_state", "leader_command"]}[params.leader_source]
+        leader_t = np.zeros(0)
+        leader_q = np.zeros((0, len(robot.joint_names)))
+        for name in order:
+            if name not in available:
+                continue
+            df = sf.read_stream(name)
+            missing = [j for j in robot.joint_names if j not in df.columns]
+            if missing:
+                problems.append(Problem(f"leader stream {name!r} lacks joint channel(s) "
+                                        f"{', '.join(missing)}", path))
+                continue
+            if len(df) >= 2:
+                leader_t = df["t"].to_numpy(float)
+                leader_q = df[list(robot.joint_names)].to_numpy(float)
+                break
+        pairs_meta = meta.get("pairs") or []
+        if not isinstance(pairs_meta, list) or not pairs_meta:
+            raise ScoringInputError(Problem(
+                "the session file names no paired streams (meta 'pairs' is empty)", path,
+                hint="pairs come from the session plan: each follower stream with its kind, "
+                     "site and the leader site it copies"))
+        pairs = []
+        for p in pairs_meta:
+            if not isinstance(p, Mapping) or not all(k in p for k in ("stream", "kind",
+                                                                       "leader_site")):
+                problems.append(Problem(f"meta 'pairs' entry {p!r} lacks stream, kind or "
+                                        "leader_site; it is skipped", path))
+                continue
+            pairs.append(dict(p))
+        streams: dict[str, StreamArrays] = {}
+        desc = sf.streams().set_index("name")
+        wanted = {p["stream"]: p["kind"] for p in pairs}
+        wanted.update({p["leader_stream"]: p["kind"] for p in pairs if p.get("leader_stream")})
+        for name, kind in wanted.items():
+            if name not in available:
+                problems.append(Problem(
+                    f"stream {name!r} is paired in meta 'pairs' but was not recorded "
+                    "(no such stream); its repetitions are flagged missing_data", path))
+                continue
+            df = sf.read_stream(name)
+            channels = [c for c in desc.loc[name, "channels"]]
+            units = list(desc.loc[name, "units"] or [])
+            data = df[channels].to_numpy(float) if channels else np.zeros((len(df), 0))
+            for j, u in enumerate(units[: len(channels)]):
+                if isinstance(u, str) and u.strip().lower() in ("deg", "degree", "degrees",
+                                                                "deg/s"):
+                    data[:, j] = np.deg2rad(data[:, j])
+            streams[name] = StreamArrays(name, str(desc.loc[name, "kind"] or kind),
+                                         tuple(channels), df["t"].to_numpy(float), data)
+        spans = sf.spans()
+        session = Path(path).stem
+        return SessionData(
+            session=session, participant=sf.participant, study=sf.study,
+            mode=str(meta.get("mode", "mirror")), robot=robot, pairs=tuple(pairs),
+            spans=spans, leader_t=leader_t, leader_q=leader_q, streams=streams, path=path,
+            problems=tuple(problems))
+    finally:
+        if own:
+            sf.close()
+
+
+# --------------------------------------------------------------------------- preparation
+
+
+def _grid_index(t: float, rate: float) -> int:
+    """Index of the first grid sample at or after ``t`` (tolerant to rounding)."""
+    return math.ceil(t * rate - 1e-6)
+
+
+@dataclass(eq=False)
+class _PairData:
+    pair: dict
+    ref: np.ndarray | None      # (n, 3) filtered leader reference on the grid
+    fol: np.ndarray | None      # (n, 3) filtered follower channels on the grid
+    axes: dict = field(default_factory=dict)   # move -> (3,)
+    source: str = ""
+
+
+@dataclass(eq=False)
+class _Prepared:
+    data: SessionData
+    params: ScoringParams
+    k0: int
+    n: int
+    moves: pd.DataFrame
+    pairs: list[_PairData]
+    problems: list[Problem]
+
+
+def _where(data: SessionData, stream: str | None = None, move: str | None = None,
+           step: int | None = None, repetition: int | None = None) -> str:
+    parts = [f"session {data.session!r}"]
+    if stream is not None:
+        parts.append(f"stream {stream!r}")
+    if move is not None:
+        parts.append(f"move {move!r}")
+    if step is not None:
+        parts.append(f"step {step}")
+    if repetition is not None:
+        parts.append(f"repetition {repetition}")
+    return ", ".join(parts)
+
+
+def _prepare(data: SessionData, params: ScoringParams) -> _Prepared:
+    problems = list(data.problems)
+    file = data.path
+    spans = data.spans
+    moves = spans[spans["kind"] == "move"].sort_values("t_start").reset_index(drop=True)
+    if moves.empty:
+        raise ScoringInputError(Problem(
+            f"{_where(data)}: the spans table holds no repetitions of kind 'move'", file,
+            hint="scoring needs the leader's timeline spans; record the session with "
+                 "echoreo session"))
+    rate = params.rate_hz
+    margin = round(rate)  # 1 s before and after, for the filter's edges
+    k0 = _grid_index(float(moves["t_start"].min()), rate) - margin
+    k1 = _grid_index(float(moves["t_end"].max()) + params.lag_max_s, rate) + margin
+    n = k1 - k0 + 1
+    t_grid = (k0 + np.arange(n)) / rate
+    robot = data.robot
+
+    def smooth(x: np.ndarray) -> np.ndarray:
+        return lowpass(x, rate, params.filter_cutoff_hz, params.filter_order)
+
+    out: list[_PairData] = []
+    virtual: list[dict] = []
+    for p in data.pairs:
+        kind = p.get("kind")
+        if kind not in KIND_CHANNELS:
+            problems.append(Problem(
+                f"{_where(data, p.get('stream'))}: kind {kind!r} has no leader reference; the "
+                "stream is not scored", file, hint="pair streams of kind 'imu' or 'head_pose'"))
+            continue
+        leader_site = p.get("leader_site")
+        target = mirror_site(leader_site) if data.mode == "mirror" else leader_site
+        if target not in robot.site_names:
+            problems.append(Problem(
+                f"{_where(data, p['stream'])}: leader site {leader_site!r} is not a site of "
+                f"robot {robot.name!r} ({', '.join(robot.site_names)}); not scored", file))
+            continue
+        pd_ = _PairData(pair=dict(p), ref=None, fol=None)
+        pd_.pair.setdefault("site", target)
+        # follower
+        s = data.streams.get(p["stream"])
+        if s is not None:
+            x = s.columns(KIND_CHANNELS[kind])
+            if x is None:
+                problems.append(Problem(
+                    f"{_where(data, p['stream'])}: lacks channel(s) "
+                    f"{', '.join(c for c in KIND_CHANNELS[kind] if c not in s.channels)}; "
+                    "its repetitions are flagged missing_data", file))
+            elif s.t.shape[0] != x.shape[0]:
+                problems.append(Problem(
+                    f"{_where(data, p['stream'])}: {s.t.shape[0]} time stamps but "
+                    f"{x.shape[0]} samples; its repetitions are flagged missing_data", file))
+            elif s.t.shape[0] < 2:
+                problems.append(Problem(
+                    f"{_where(data, p['stream'])}: fewer than two samples; its repetitions "
+                    "are flagged missing_data", file))
+            else:
+                t_s = s.t
+                if kind == "head_pose":
+                    x = x.copy()
+                    ok = np.isfinite(x).all(axis=1)
+                    x[ok] = np.unwrap(x[ok], axis=0)
+                rs = resample_uniform(t_s, x, rate, k0, n, params.max_gap_s)
+                pd_.fol = smooth(rs.x)
+        # leader reference
+        lead_name = p.get("leader_stream")
+        if lead_name:
+            ls = data.streams.get(lead_name)
+            lx = ls.columns(KIND_CHANNELS[kind]) if ls is not None else None
+            if lx is None or ls.t.shape[0] != lx.shape[0] or ls.t.shape[0] < 2:
+                problems.append(Problem(
+                    f"{_where(data, p['stream'])}: recorded leader stream {lead_name!r} is "
+                    "missing or lacks its channels; using the virtual sensor instead", file))
+            else:
+                if kind == "head_pose":
+                    lx = lx.copy()
+                    ok = np.isfinite(lx).all(axis=1)
+                    lx[ok] = np.unwrap(lx[ok], axis=0)
+                rs = resample_uniform(ls.t, lx, rate, k0, n, params.max_gap_s)
+                ref = reflect_lateral(rs.x, kind) if data.mode == "mirror" else rs.x
+                pd_.ref = smooth(ref)
+                pd_.source = f"recorded {lead_name}"
+        if pd_.ref is None:
+            virtual.append(pd_.pair)
+        out.append(pd_)
+    if virtual:
+        if data.leader_q.shape[0] >= 2:
+            rq = resample_uniform(data.leader_t, data.leader_q, rate, k0, n, params.max_gap_s)
+            refs = virtual_references(robot, t_grid, rq.x, virtual, data.mode)
+            for pd_ in out:
+                if pd_.ref is None and pd_.pair["stream"] in refs:
+                    pd_.ref = smooth(refs[pd_.pair["stream"]])
+                    pd_.source = "virtual"
+        else:
+            problems.append(Problem(
+                f"{_where(data)}: no leader joints recorded (leader_state / leader_command "
+                "empty); streams without a recorded leader sensor cannot be scored", file))
+    # the leader's principal axis per pair and move
+    for pd_ in out:
+        if pd_.ref is None:
+            continue
+        for move, grp in moves.groupby("move", sort=False):
+            idx = np.concatenate([np.arange(_grid_index(a, rate), _grid_index(b, rate)) - k0
+                                  for a, b in zip(grp["t_start"], grp["t_end"], strict=True)])
+            idx = idx[(idx >= 0) & (idx < n)]
+            pd_.axes[move] = principal_axis(pd_.ref[idx]) if idx.size else np.eye(3)[0]
+    return _Prepared(data, params, k0, n, moves, out, problems)
+
+
+def _rms(x: np.ndarray) -> float:
+    """RMS deviation of multichannel samples from their mean: sqrt(mean ||x - mean||^2)."""
+    if x.shape[0] == 0:
+        return _NAN
+    d = x - x.mean(axis=0)
+    return float(np.sqrt(np.mean(np.sum(d * d, axis=1))))
+
+
+def _steps(moves: pd.DataFrame) -> list[tuple[int, str, pd.DataFrame]]:
+    return [(int(step), str(grp["move"].iloc[0]), grp)
+            for step, grp in moves.groupby("step", sort=False)]
+
+
+def _leader_segments(prep: _Prepared) -> dict[str, list[np.ndarray]]:
+    """Leader 1-D reference per step and pair (where the leader moves), by kind."""
+    rate = prep.params.rate_hz
+    cfg = prep.params.grade
+    segs: dict[str, list[np.ndarray]] = {}
+    for _step, move, grp in _steps(prep.moves):
+        a = max(_grid_index(float(grp["t_start"].min()), rate) - prep.k0, 0)
+        b = min(_grid_index(float(grp["t_end"].max()), rate) - prep.k0, prep.n)
+        for pd_ in prep.pairs:
+            if pd_.ref is None or b - a < 3:
+                continue
+            r = pd_.ref[a:b]
+            if not np.isfinite(r).all():
+                continue
+            kind = pd_.pair["kind"]
+            if _rms(r) < cfg.leader_still_limit(kind):
+                continue
+            segs.setdefault(kind, []).append(r @ pd_.axes.get(move, np.eye(3)[0]))
+    return segs
+
+
+def _median_rep_samples(moves: pd.DataFrame, rate: float) -> float:
+    return float(np.median((moves["t_end"] - moves["t_start"]).to_numpy(float)) * rate)
+
+
+def _choose_for(prep: _Prepared) -> dict[str, EmbeddingChoice]:
+    params = prep.params
+    segs = _leader_segments(prep)
+    rep = _median_rep_samples(prep.moves, params.rate_hz)
+    kinds = sorted({pd_.pair["kind"] for pd_ in prep.pairs})
+    out = {}
+    for kind in kinds:
+        out[kind] = choose_embedding(kind, segs.get(kind, []), params, rep)
+    return out
+
+
+def session_embedding(path_or_data: Any, params: ScoringParams | None = None
+                      ) -> dict[str, EmbeddingChoice]:
+    """This session's own choice of delay and dimension per stream kind.
+
+    Parameters
+    ----------
+    path_or_data : str, Path, SessionFile or SessionData
+    params : ScoringParams, optional
+
+    Returns
+    -------
+    dict of str to EmbeddingChoice
+        See :func:`echoreo.scoring.params.choose_embedding`.
+    """
+    params = params or ScoringParams()
+    data = path_or_data if isinstance(path_or_data, SessionData) else read_session(
+        path_or_data, params)
+    return _choose_for(_prepare(data, params))
+
+
+# --------------------------------------------------------------------------- scoring
+
+
+def _base_record(data: SessionData, pd_: _PairData, row: Any, params: ScoringParams) -> dict:
+    p = pd_.pair
+    rec = dict.fromkeys(RECORD_FIELDS, _NAN)
+    rec.update(
+        session=data.session, participant=data.participant, study=data.study,
+        stream=p["stream"], kind=p["kind"], site=p.get("site"), leader_site=p["leader_site"],
+        choreography=str(row.choreography), move=str(row.move), step=int(row.step),
+        repetition=int(row.repetition), t_start=float(row.t_start), t_end=float(row.t_end),
+        flags=[], band=params.grade.missing_band, delay=None, dim=None, signal=None,
+        rate_hz=float(params.rate_hz), filter_cutoff_hz=float(params.filter_cutoff_hz),
+        filter_order=int(params.filter_order))
+    return rec
+
+
+def _empty_detail() -> dict:
+    return {"t": None, "leader_signal": None, "follower_signal": None, "leader_pc": None,
+            "follower_pc": None, "leader_dist": None, "follower_dist": None, "axis": None,
+            "components": {}, "correlation": _NAN, "rms_leader": _NAN, "rms_follower": _NAN,
+            "motion_ratio": _NAN}
+
+
+def score_data(data: SessionData, params: ScoringParams | None = None, *,
+               details: bool = False) -> SessionScores:
+    """Score one session held in memory.
+
+    Parameters
+    ----------
+    data : SessionData
+    params : ScoringParams, optional
+        When ``params.embedding`` lacks a kind, this session's own choice is
+        used for it (a study of one).
+    details : bool
+        Keep trajectories and aligned signals for plots.
+
+    Returns
+    -------
+    SessionScores
+
+    Raises
+    ------
+    ScoringInputError
+        Nothing at all can be scored (no move spans). Everything narrower
+        (a stream, a repetition) becomes a located entry of ``problems`` and
+        the rest is scored.
+    """
+    params = params or ScoringParams()
+    prep = _prepare(data, params)
+    problems = prep.problems
+    file = data.path
+    cfg = params.grade
+    rate = params.rate_hz
+    kinds = sorted({pd_.pair["kind"] for pd_ in prep.pairs})
+    missing_kinds = [k for k in kinds if params.embedding_for(k) is None]
+    if missing_kinds:
+        own = _choose_for(prep)
+        params = params.with_embedding(own[k] for k in missing_kinds)
+    for k in kinds:
+        c = params.embedding_for(k)
+        if c is not None and c.method == "fallback" and c.note:
+            problems.append(Problem(f"{_where(data)}: kind {k!r}: embedding fallback dim "
+                                    f"{c.dim}, delay {c.delay} ({c.note})", file))
+    lag_lo = round(params.lag_min_s * rate)
+    lag_hi = round(params.lag_max_s * rate)
+
+    records: list[dict] = []
+    det: list[dict] = []
+    extra: list[dict] = []  # per record: private values for the second pass
+    for step, move, grp in _steps(prep.moves):
+        a_step = _grid_index(float(grp["t_start"].min()), rate) - prep.k0
+        b_step = _grid_index(float(grp["t_end"].max()), rate) - prep.k0
+        # lags of this step, per pair
+        lags: dict[str, tuple[int, float, bool, bool]] = {}
+        for pd_ in prep.pairs:
+            name = pd_.pair["stream"]
+            if pd_.ref is None or pd_.fol is None:
+                continue
+            u = pd_.axes.get(move, np.eye(3)[0])
+            r = pd_.ref[a_step:b_step]
+            moving = bool(np.isfinite(r).all() and _rms(r) >= cfg.leader_still_limit(
+                pd_.pair["kind"]))
+            if not moving:
+                continue
+            hi = min(b_step + lag_hi, prep.n)
+            x = pd_.ref[a_step:hi] @ u
+            y = pd_.fol[a_step:hi] @ u
+            est = estimate_lag(x, y, 0, b_step - a_step, lag_lo, lag_hi)
+            if est.lag >= 0:
+                lags[name] = (est.lag, est.correlation, est.at_edge, True)
+        if lags:
+            borrowed = int(np.median([v[0] for v in lags.values()]))
+        else:
+            borrowed = lag_lo
+        for pd_ in prep.pairs:
+            p = pd_.pair
+            name, kind = p["stream"], p["kind"]
+            choice = params.embedding_for(kind)
+            u = pd_.axes.get(move, np.eye(3)[0])
+            lag, _, at_edge, own_lag = lags.get(name, (borrowed, _NAN, False, False))
+            for row in grp.itertuples(index=False):
+                rec = _base_record(data, pd_, row, params)
+                rec["delay"] = int(choice.delay)
+                rec["dim"] = int(choice.dim)
+                rec["signal"] = (f"{KIND_SIGNAL[kind]} on leader PC1 of move "
+                                 f"[{u[0]:+.3f} {u[1]:+.3f} {u[2]:+.3f}]")
+                d = _empty_detail()
+                d["axis"] = u
+                ex = {"still": False, "rms_l": _NAN, "rms_f": _NAN, "fmed": _NAN,
+                      "scored": False, "skipped": False, "at_edge": at_edge,
+                      "own_lag": own_lag, "corr": _NAN}
+                where = _where(data, name, move, step, int(row.repetition))
+                a = _grid_index(float(row.t_start), rate) - prep.k0
+                b = _grid_index(float(row.t_end), rate) - prep.k0
+                rec["lag_s"] = lag / rate
+                records.append(rec)
+                det.append(d)
+                extra.append(ex)
+                if pd_.fol is None or pd_.ref is None:
+                    rec["flags"] = ["missing_data"]
+                    continue
+                if b - a < 2:
+                    problems.append(Problem(f"{where}: the repetition is empty "
+                                            f"({row.t_start:.3f} s to {row.t_end:.3f} s); not "
+                                            "scored", file))
+                    rec["flags"] = ["missing_data"]
+                    continue
+                if a < 0 or b + lag > prep.n:
+                    rec["flags"] = ["missing_data"]
+                    continue
+                R = pd_.ref[a:b]
+                F = pd_.fol[a + lag:b + lag]
+                if not (np.isfinite(R).all() and np.isfinite(F).all()):
+                    bad_l = int((~np.isfinite(R).all(axis=1)).sum())
+                    bad_f = int((~np.isfinite(F).all(axis=1)).sum())
+                    who = []
+                    if bad_f:
+                        who.append(f"follower {bad_f} of {b - a} samples")
+                    if bad_l:
+                        who.append(f"leader reference {bad_l} of {b - a} samples")
+                    problems.append(Problem(
+                        f"{where}: data missing across a gap longer than "
+                        f"{params.max_gap_s:g} s ({', '.join(who)}); flagged missing_data, "
+                        "not scored", file))
+                    rec["flags"] = ["missing_data"]
+                    continue
+                sl = R @ u
+                sf = F @ u
+                rms_l, rms_f = _rms(R), _rms(F)
+                ex.update(rms_l=rms_l, rms_f=rms_f)
+                d.update(t=(prep.k0 + a + np.arange(b - a)) / rate, leader_signal=sl,
+                         follower_signal=sf, rms_leader=rms_l, rms_follower=rms_f,
+                         motion_ratio=rms_f / rms_l if rms_l > 0 else _NAN)
+                if rms_l < cfg.leader_still_limit(kind):
+                    ex["still"] = True
+                    continue
+                if rms_f < cfg.skipped_fraction * rms_l:
+                    ex["skipped"] = True
+                try:
+                    cmp = compare_repetition(sl, sf, int(choice.dim), int(choice.delay),
+                                             radius_fraction=params.radius_fraction,
+                                             lmin=params.lmin, vmin=params.lmin)
+                except InputError as exc:
+                    if not ex["skipped"]:
+                        problems.append(Problem(f"{where}: {str(exc).splitlines()[0]}; not "
+                                                "scored", file))
+                    continue
+                rec.update(median_ratio=cmp.median_ratio, iqr_ratio=cmp.iqr_ratio,
+                           wasserstein=cmp.wasserstein, shape_distance=cmp.shape_distance,
+                           **{f"crqa_{k}": v for k, v in cmp.crqa.items()})
+                ex["corr"] = lagged_correlation(sl, sf, 0, sl.shape[0], 0)
+                ex["fmed"] = float(np.median(cmp.follower_dist))
+                ex["scored"] = True
+                d.update(leader_pc=cmp.leader_pc, follower_pc=cmp.follower_pc,
+                         leader_dist=cmp.leader_dist, follower_dist=cmp.follower_dist,
+                         correlation=ex["corr"])
+
+    _second_pass(records, extra, det, cfg)
+    df = pd.DataFrame.from_records(records, columns=list(RECORD_FIELDS))
+    for c in ("step", "repetition"):
+        df[c] = df[c].astype(np.int64)
+    return SessionScores(data.session, data.path, df, problems, params,
+                         det if details else None)
+
+
+def _second_pass(records: list[dict], extra: list[dict], det: list[dict], cfg) -> None:
+    """Variability, grades, flags (including the cross-stream asymmetry)."""
+    # variability: CV of the follower's median distance across repetitions of a move
+    groups: dict[tuple[str, str], list[int]] = {}
+    for i, rec in enumerate(records):
+        groups.setdefault((rec["stream"], rec["move"]), []).append(i)
+    for idx in groups.values():
+        vals = np.array([extra[i]["fmed"] for i in idx if extra[i]["scored"]])
+        cv = _NAN
+        if vals.size >= 2 and vals.mean() > 0:
+            cv = float(vals.std(ddof=1) / vals.mean())
+        for i in idx:
+            if extra[i]["scored"]:
+                records[i]["variability"] = cv
+    # grades and per-record flags
+    for i, rec in enumerate(records):
+        ex = extra[i]
+        flags = list(rec["flags"])
+        if "missing_data" in flags:
+            rec["grade"] = _NAN
+        elif ex["still"]:
+            rec["grade"] = still_grade(ex["rms_f"], rec["kind"], cfg)
+            if rec["kind"] == "head_pose" and ex["rms_f"] > cfg.head_moving_limit:
+                flags.append("head_moving")
+        elif ex["skipped"]:
+            rec["grade"] = 0.0
+            flags.append("skipped")
+        elif ex["scored"]:
+            m = {k: rec[k] for k in ("median_ratio", "iqr_ratio", "wasserstein",
+                                      "shape_distance", "crqa_RR", "crqa_DET", "lag_s",
+                                      "variability")}
+            m["correlation"] = ex["corr"]
+            comp = component_scores(m, cfg)
+            det[i]["components"] = comp
+            rec["grade"] = grade_from_components(comp, cfg)
+            r = ex["rms_f"] / ex["rms_l"]
+            if math.isfinite(r) and r < cfg.amplitude_low:
+                flags.append("amplitude_low")
+            if math.isfinite(r) and r > cfg.amplitude_high:
+                flags.append("amplitude_high")
+        else:
+            rec["grade"] = _NAN
+        if (ex["own_lag"] and (rec["lag_s"] > cfg.lag_limit_s or ex["at_edge"])
+                and "missing_data" not in flags):
+            flags.append("lag")
+        rec["flags"] = flags
+    # asymmetry: the two wrists of one repetition, each relative to its leader wrist
+    by_rep: dict[tuple[int, int], dict[str, int]] = {}
+    for i, rec in enumerate(records):
+        if rec["kind"] == "imu" and rec["site"] in ("left_wrist", "right_wrist"):
+            by_rep.setdefault((rec["step"], rec["repetition"]), {})[rec["site"]] = i
+    for sites in by_rep.values():
+        if len(sites) != 2:
+            continue
+        il, ir = sites["left_wrist"], sites["right_wrist"]
+        if any(extra[i]["still"] or not math.isfinite(extra[i]["rms_l"]) for i in (il, ir)):
+            continue
+        if extra[il]["skipped"] and extra[ir]["skipped"]:
+            continue
+        rl = extra[il]["rms_f"] / extra[il]["rms_l"]
+        rr = extra[ir]["rms_f"] / extra[ir]["rms_l"]
+        if asymmetric(rl, rr, cfg):
+            for i in (il, ir):
+                if "asymmetry" not in records[i]["flags"]:
+                    records[i]["flags"].append("asymmetry")
+    for rec in records:
+        rec["flags"] = [f for f in FLAGS if f in rec["flags"]]
+        rec["band"] = band_for(rec["grade"], cfg)
+
+
+def score_session(path_or_sessionfile: Any, params: ScoringParams | None = None, *,
+                  details: bool = False) -> SessionScores:
+    """Score every repetition × paired stream of one session file.
+
+    A pure function of its arguments (it reads the file and returns records;
+    it writes nothing), so sessions can be scored in a process pool.
+
+    Parameters
+    ----------
+    path_or_sessionfile : str, Path, SessionFile or SessionData
+    params : ScoringParams, optional
+        Default :class:`ScoringParams`; a kind without a study-level embedding
+        gets this session's own choice.
+    details : bool
+        Keep trajectories, distances and aligned signals for plots.
+
+    Returns
+    -------
+    SessionScores
+        ``.records`` has the columns of :data:`RECORD_FIELDS`.
+    """
+    data = (path_or_sessionfile if isinstance(path_or_sessionfile, SessionData)
+            else read_session(path_or_sessionfile, params))
+    return score_data(data, params, details=details)
+
+
+def score_study(paths: Sequence[Any], params: ScoringParams | None = None, *,
+                details: bool = False, map_fn: Callable | None = None) -> StudyScores:
+    """Choose the study-level embedding, then score every session with it.
+
+    1. Each session's own choice per stream kind (:func:`session_embedding`).
+    2. The study's: lower median over sessions per kind
+       (:func:`~echoreo.scoring.params.combine_choices`).
+    3. Every session scored with it (:func:`score_session`).
+
+    Parameters
+    ----------
+    paths : sequence of str or Path
+        Session files.
+    params : ScoringParams, optional
+        Kinds that already have an embedding keep it.
+    details : bool
+    map_fn : callable, optional
+        A ``map``-like function (``concurrent.futures.Executor.map``) to run the
+        per-session steps in parallel; default the built-in ``map``.
+
+    Returns
+    -------
+    StudyScores
+    """
+    import functools
+
+    params = params or ScoringParams()
+    mapper = map_fn or map
+    per_session = list(mapper(functools.partial(session_embedding, params=params), paths))
+    chosen = combine_choices(per_session, params)
+    keep = {c.kind for c in params.embedding}
+    study_params = params.with_embedding(c for c in chosen if c.kind not in keep)
+    sessions = list(mapper(functools.partial(score_session, params=study_params,
+                                             details=details), paths))
+    records = (pd.concat([s.records for s in sessions], ignore_index=True)
+               if sessions else pd.DataFrame(columns=list(RECORD_FIELDS)))
+    problems = [p for s in sessions for p in s.problems]
+    return StudyScores(sessions, study_params, per_session, records, problems)
