@@ -178,35 +178,34 @@ def grade_reliability(records: pd.DataFrame, *, across: str = "repetition") -> p
     return pd.DataFrame(out)
 
 
-def flagged_participants(records: pd.DataFrame, *, min_fraction: float = 0.3) -> pd.DataFrame:
-    """Participants whose repetitions raise a flag often, with the reason.
+def flagged_participants(records: pd.DataFrame, *, min_fraction: float = 0.25) -> pd.DataFrame:
+    """Participants whose repetitions of a stream raise a flag often, with the reason.
 
-    A participant is listed for a flag when at least ``min_fraction`` of their
-    scored repetition records carry it (0.3 is our default: common practice
-    in screening, no single source).
+    Flags belong to streams (``head_moving`` to the head, ``asymmetry`` to the
+    wrists), so the fraction is taken per participant and stream: a
+    participant is listed for a flag when at least ``min_fraction`` of their
+    scored repetitions of one stream carry it (0.25 is our default: common
+    practice in screening, no single source).
 
     Returns
     -------
     DataFrame
-        Columns ``participant, flag, fraction, count, n, streams``, sorted by
-        participant then descending fraction.
+        Columns ``participant, stream, flag, fraction, count, n``, sorted by
+        participant, then descending fraction.
     """
     _require(records, ["participant", "stream", "flags"])
     rows = []
-    for participant, group in records.groupby("participant", sort=True):
+    for (participant, stream), group in records.groupby(["participant", "stream"], sort=True):
         n = len(group)
         counts: dict[str, int] = {}
-        streams: dict[str, set] = {}
-        for stream, flags in zip(group["stream"], group["flags"], strict=True):
+        for flags in group["flags"]:
             for flag in set(flags):
                 counts[flag] = counts.get(flag, 0) + 1
-                streams.setdefault(flag, set()).add(stream)
-        for flag, count in counts.items():
+        for flag, count in sorted(counts.items()):
             if n and count / n >= min_fraction:
-                rows.append({"participant": participant, "flag": flag,
-                             "fraction": count / n, "count": count, "n": n,
-                             "streams": ", ".join(sorted(streams[flag]))})
-    df = pd.DataFrame(rows, columns=["participant", "flag", "fraction", "count", "n", "streams"])
+                rows.append({"participant": participant, "stream": stream, "flag": flag,
+                             "fraction": count / n, "count": count, "n": n})
+    df = pd.DataFrame(rows, columns=["participant", "stream", "flag", "fraction", "count", "n"])
     if len(df):
-        df = df.sort_values(["participant", "fraction"], ascending=[True, False])
+        df = df.sort_values(["participant", "fraction"], ascending=[True, False], kind="stable")
     return df.reset_index(drop=True)

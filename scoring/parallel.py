@@ -105,7 +105,8 @@ def map_sessions(
 def _map_dask(func: Callable, paths: Iterable[Any], address: str, kwargs: dict,
               tick: Callable[[], None]) -> list[tuple[str, Any]]:
     try:
-        from distributed import Client, as_completed as dask_completed
+        from distributed import Client
+        from distributed import as_completed as dask_completed
     except ImportError as exc:
         raise ScoringInputError(
             "--cluster needs Dask distributed, which is not installed",

@@ -202,25 +202,31 @@ def _boxplot_figure(figs: _Figures, records: pd.DataFrame, details: Mapping[int,
                      "participant and stream; leader in gold as reference")
 
 
-def _chosen(records: pd.DataFrame) -> tuple[pd.Series | None, list]:
-    """One repetition (first move, repetition 1, first stream) and up to 3 participants."""
-    if not len(records):
+def _chosen(records: pd.DataFrame, details: Mapping[int, Any]) -> tuple[pd.Series | None, list]:
+    """One repetition and up to 3 participants (best, median, worst grade) to draw.
+
+    The repetition is the earliest (stream, move, repetition) for which the most
+    participants have trajectories, so a repetition lost to a sensor gap is skipped.
+    """
+    has = [i for i in records.index if _get(details.get(i), "follower_pc") is not None]
+    if not has:
         return None, []
-    first = records.sort_values(["t_start"]).iloc[0]
-    same = records[(records["stream"] == first["stream"]) & (records["move"] == first["move"])
-                   & (records["repetition"] == first["repetition"])]
+    rec = records.loc[has]
+    counts = rec.groupby(["stream", "move", "repetition"]).size()
+    best = counts[counts == counts.max()].index
+    keyed = rec.set_index(["stream", "move", "repetition"], drop=False)
+    candidates = keyed.loc[keyed.index.isin(best)].sort_values("t_start")
+    first = candidates.iloc[0]
+    same = rec[(rec["stream"] == first["stream"]) & (rec["move"] == first["move"])
+               & (rec["repetition"] == first["repetition"])]
     ranked = same.sort_values("grade", ascending=False)
-    picks = []
-    if len(ranked):
-        for pos in sorted({0, len(ranked) // 2, len(ranked) - 1}):
-            picks.append(ranked.index[pos])
+    picks = [ranked.index[pos] for pos in sorted({0, len(ranked) // 2, len(ranked) - 1})]
     return first, picks
 
 
 def _trajectory_figures(figs: _Figures, records: pd.DataFrame,
                         details: Mapping[int, Any]) -> str:
-    first, picks = _chosen(records)
-    picks = [i for i in picks if _get(details.get(i), "follower_pc") is not None]
+    first, picks = _chosen(records, details)
     if first is None or not picks:
         return "<p class='muted'>no trajectories available (scores without details)</p>"
     lead = np.asarray(_get(details[picks[0]], "leader_pc"), dtype=float)
@@ -260,7 +266,8 @@ def _trajectory_figures(figs: _Figures, records: pd.DataFrame,
         ax.plot(np.asarray(t), np.asarray(fs), color=colours[0],
                 label=f"follower {records.loc[i, 'participant']} (lag-aligned)")
         ax.set_xlabel("time in repetition (s)")
-        ax.set_ylabel(str(records.loc[i].get("signal", "signal")))
+        label = str(records.loc[i].get("signal", "signal")).split(" of ")[0]
+        ax.set_ylabel(label[:40])
         ax.legend(fontsize=8)
         out += figs.html(fig, "timeseries", f"Leader and follower signals: {title}")
     return out
@@ -300,6 +307,9 @@ def _methods(data: ReportData) -> str:
     )
     return f"<p class='methods'>{html.escape(text)}</p>"
 
+
+#: Longest list of left-out items printed in full.
+_MAX_NOTES = 25
 
 _CSS = """
 body{font-family:system-ui,sans-serif;max-width:1100px;margin:2em auto;padding:0 1em;color:#222}
@@ -392,7 +402,8 @@ def build_report(data: ReportData, *, figures_dir: str | Path | None = None,
                  _trajectory_figures(figs, rec, data.details)]
         flags = flagged_participants(rec)
         body += ["<h2>Flags</h2>",
-                 "<p>Participants with a flag on at least 30% of their repetition records.</p>",
+                 "<p>Participants with a flag on at least 25% of their repetitions of a "
+                 "stream.</p>",
                  _table(flags)]
         rel = grade_reliability(rec, across="repetition")
         body += ["<h2>Reliability of the grade</h2>",
@@ -405,9 +416,13 @@ def build_report(data: ReportData, *, figures_dir: str | Path | None = None,
         body += ["<h2>Methods</h2>", _methods(data)]
     else:
         body += ["<p>No scored repetitions to show.</p>"]
+    shown = list(data.notes[:_MAX_NOTES])
+    if len(data.notes) > _MAX_NOTES:
+        shown.append(f"... and {len(data.notes) - _MAX_NOTES} more (the score records carry "
+                     "the flags of every repetition)")
     body += ["<h2>Left out</h2>",
-             ("<ul>" + "".join(f"<li>{html.escape(n)}</li>" for n in data.notes) + "</ul>")
-             if data.notes else "<p class='muted'>nothing</p>"]
+             ("<ul>" + "".join(f"<li>{html.escape(n)}</li>" for n in shown) + "</ul>")
+             if shown else "<p class='muted'>nothing</p>"]
     body += [f"<p class='caution'>{html.escape(SAFETY_TEXT)}</p>"]
     return ("<!DOCTYPE html><html lang='en'><head><meta charset='utf-8'>"
             f"<title>{html.escape(data.title)}</title><style>{_CSS}</style>{_ERROR_COUNTER}"

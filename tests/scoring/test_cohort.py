@@ -53,6 +53,6 @@ def test_summary_reliability_and_flags():
     retest = grade_reliability(records, across="session")
     assert retest.loc[0, "k"] == 2 and retest.loc[0, "ICC(3,1)"] > 0.9
     flagged = flagged_participants(records)
-    assert flagged.to_dict("records") == [{"participant": "P03", "flag": "head_moving",
-                                           "fraction": 1.0, "count": 10, "n": 10,
-                                           "streams": "imu"}]
+    assert flagged.to_dict("records") == [{"participant": "P03", "stream": "imu",
+                                           "flag": "head_moving", "fraction": 1.0,
+                                           "count": 10, "n": 10}]
