@@ -33,6 +33,13 @@ kernel for the ``SCHED_FIFO`` policy for the calling thread (needs root or
 ``CAP_SYS_NICE``; refused quietly otherwise). Linux's real-time throttling
 (``kernel.sched_rt_runtime_us``, 95 % by default) keeps a spinning real-time
 thread from locking up a core.
+
+Other Python threads (the recorder's writer, follower polling) share the
+GIL: a command loop that wakes while another thread holds it waits up to
+the interpreter's switch interval (5 ms by default) before the holder is
+made to let go. ``sys.setswitchinterval(2e-4)`` bounds that wait to about
+0.2 ms; ``benchmarks/bench_command_loop.py --recorder --switch-interval``
+measures the effect.
 """
 
 from __future__ import annotations
@@ -51,14 +58,19 @@ __all__ = ["LatenessStats", "Scheduler", "SessionClock", "Tick", "VirtualClock",
            "request_realtime_priority"]
 
 
-def request_realtime_priority(priority: int = 10) -> bool:
-    """Run the calling thread under ``SCHED_FIFO`` at ``priority`` (Linux), if allowed.
+def request_realtime_priority(priority: int = 10, thread_id: int | None = None) -> bool:
+    """Run a thread under ``SCHED_FIFO`` at ``priority`` (Linux), if allowed.
 
     Parameters
     ----------
     priority : int
         Real-time priority, 1 (lowest) to 99; 10 is above every ordinary
         process and below the kernel's own real-time threads.
+    thread_id : int, optional
+        Kernel thread id (``threading.Thread.native_id``); the calling thread
+        by default. Raising the recorder's writer thread as well (at a lower
+        priority) keeps it from being preempted by other processes while it
+        holds the GIL the command loop is waiting for.
 
     Returns
     -------
@@ -70,7 +82,8 @@ def request_realtime_priority(priority: int = 10) -> bool:
     if setter is None:
         return False
     try:
-        setter(0, os.SCHED_FIFO, os.sched_param(priority))
+        setter(0 if thread_id is None else int(thread_id), os.SCHED_FIFO,
+               os.sched_param(priority))
     except (OSError, ValueError):
         return False
     return True

@@ -405,6 +405,11 @@ class Recorder:
         self.close("complete" if exc_type is None else "interrupted")
 
     @property
+    def writer_native_id(self) -> int | None:
+        """Kernel thread id of the writer thread (for scheduling priority), or None."""
+        return self._thread.native_id
+
+    @property
     def stats(self) -> RecorderStats:
         """Current counters (see :class:`RecorderStats`)."""
         return RecorderStats(self._rows_written, self._events_written, self._commits,
