@@ -46,8 +46,10 @@ def run(args: argparse.Namespace, console: Console) -> int:
     res = results[0]
     samples = ", ".join(f"{n} {c}" for n, c in res.samples.items()) or "none"
     console.print(f"{res.outcome}: {res.ticks} commands, {res.duration_s:.1f} s of session "
-                  f"time; follower samples: {samples}", markup=False, highlight=False)
-    console.print(f"session file: {escape(str(res.path))} ({res.state})", highlight=False)
+                  f"time; follower samples: {samples}", markup=False, highlight=False,
+                  soft_wrap=True)
+    console.print(f"session file: {escape(str(res.path))} ({res.state})", highlight=False,
+                  soft_wrap=True)
     if res.interrupted_by_ctrl_c:
         return 130
     if res.outcome in ("complete", "stopped"):

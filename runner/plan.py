@@ -355,8 +355,9 @@ _SIM_LEADER_KEYS = {"adapter", "tau_s", "seed", "noise_rad", "fail_after_s", "st
 _SIM_FOLLOWER_KEYS = {"adapter", "profile", "height_m", "seed", "latency_s", "dropout",
                       "streams", "clock_offset_s", "clock_drift_ppm", "loss_fraction",
                       "glitch_every_s"}
-_ZMQ_KEYS = {"adapter", "endpoint", "endpoints", "keys", "server_key", "timeout_s",
-             "heartbeat_s", "streams"}
+_ZMQ_KEYS = {"adapter", "endpoint", "endpoints", "keys", "timeout_s", "heartbeat_s",
+             "connect_timeout_s", "sync_interval_s"}
+_ZMQ_FOLLOWER_KEYS = _ZMQ_KEYS | {"gap_s", "require_all"}
 
 
 def _check_endpoint(ck: _Checker, value: Any, loc: Loc) -> None:
@@ -428,7 +429,10 @@ def _adapter(ck: _Checker, d: Any, where: str, allowed_adapters: tuple[str, ...]
                     ck.number(it, "duration_s", None, low=0.0, high=1e6, unit="s",
                               required=True, low_open=True)
     else:  # zmq
-        ck.unknown_keys(d, _ZMQ_KEYS, f"{where} (zmq)")
+        leader = where == "leader"
+        ck.unknown_keys(d, _ZMQ_KEYS if leader else _ZMQ_FOLLOWER_KEYS, f"{where} (zmq)")
+        if leader and "endpoints" in d:
+            ck.add(d.key_loc("endpoints"), "a leader has one bridge: use `endpoint:`")
         if "endpoint" in d:
             _check_endpoint(ck, d["endpoint"], d.value_loc("endpoint"))
         elif "endpoints" in d:
@@ -445,8 +449,11 @@ def _adapter(ck: _Checker, d: Any, where: str, allowed_adapters: tuple[str, ...]
         else:
             ck.add(d.loc, f"{where} (zmq): `endpoint:` is missing",
                    "e.g. endpoint: tcp://127.0.0.1:5601")
-        ck.number(d, "timeout_s", None, low=0.0, high=60.0, unit="s", low_open=True)
-        ck.number(d, "heartbeat_s", None, low=0.0, high=60.0, unit="s", low_open=True)
+        for key in ("timeout_s", "heartbeat_s", "connect_timeout_s", "sync_interval_s",
+                    "gap_s"):
+            ck.number(d, key, None, low=0.0, high=600.0, unit="s", low_open=True)
+        if "require_all" in d and not isinstance(d["require_all"], bool):
+            ck.add(d.value_loc("require_all"), "require_all must be true or false")
         if "keys" in d and not isinstance(d["keys"], str):
             ck.add(d.value_loc("keys"), "keys must be the path of a CURVE key folder")
     return AdapterSpec(str(kind), _plain(settings), d.loc)

@@ -171,19 +171,29 @@ def make_leader(plan: SessionPlan) -> Leader:
 
 
 def _zmq_adapter(role: str, spec: Any, plan: SessionPlan) -> Any:
+    """A ZeroMQ leader or follower source from a plan entry (adapters/PROTOCOL.md)."""
     import echoreo.adapters as adapters
 
     name = "ZmqLeader" if role == "leader" else "ZmqFollowers"
     try:
         cls = getattr(adapters, name)
-    except AttributeError:
+    except (AttributeError, ImportError):
         raise PlanError(spec.loc.problem(
             f"the ZeroMQ {role} adapter is not available in this build",
             "use `adapter: simulated`")) from None
-    settings = dict(spec.settings)
+    s = dict(spec.settings)
+    kw: dict[str, Any] = {k: s[k] for k in ("keys", "timeout_s", "heartbeat_s",
+                                            "connect_timeout_s", "sync_interval_s") if k in s}
     if role == "leader":
-        return cls(robot=plan.robot, **settings)
-    return cls(**settings)
+        return cls(s["endpoint"], **kw)
+    eps = s.get("endpoints", s.get("endpoint"))
+    eps = list(eps.values()) if isinstance(eps, dict) else (
+        [eps] if isinstance(eps, str) else list(eps))
+    # the adapter reports its own gap events; make its limit the plan's
+    kw["gap_s"] = float(s.get("gap_s", plan.silent_after_s))
+    if "require_all" in s:
+        kw["require_all"] = bool(s["require_all"])
+    return cls(eps, **kw)
 
 
 def make_followers(plan: SessionPlan, t_s: np.ndarray, q_cmd: np.ndarray,
@@ -234,9 +244,11 @@ def make_followers(plan: SessionPlan, t_s: np.ndarray, q_cmd: np.ndarray,
 class _Monitor:
     """Per-stream bookkeeping: ordering, sequence gaps, silence, health."""
 
-    def __init__(self, info: StreamInfo, pair: Any):
+    def __init__(self, info: StreamInfo, pair: Any, own_events: bool = False):
         self.info = info
         self.pair = pair
+        #: the source reports its own dropped/gap events (the runner then adds none)
+        self.own_events = own_events
         self.samples = 0
         self.dropped = 0
         self.malformed = 0
@@ -597,7 +609,8 @@ class _Session:
         for src, info in infos:
             cmap = src.clock_maps().get(info.name)
             rec.add_stream(info, cmap)
-            monitors[info.name] = _Monitor(info, pairs.get(info.name))
+            own = type(src).events is not FollowerSource.events
+            monitors[info.name] = _Monitor(info, pairs.get(info.name), own)
             if cmap is not None:
                 monitors[info.name].status.offset_ms = cmap.offset_ns * 1e-6
                 monitors[info.name].status.offset_unc_ms = cmap.uncertainty_ns * 1e-6
@@ -639,6 +652,7 @@ class _Session:
         state_rows = _Rows("leader_state", 40_000_000 if real else 200_000_000)
         poll_every = 1 if real else max(1, round(0.1 * rate))
         crashed = False
+        next_map_ns = 0
         i = 0                      # program index of the next command
         held_ticks = 0             # ticks spent paused (shift of everything later)
         paused_for: set[str] = set()
@@ -829,6 +843,11 @@ class _Session:
                         self._stop_request = "stop"
                         self._stop_reason = "silent stream"
 
+                    # clock maps (they improve as exchanges accumulate): every 5 s
+                    if now >= next_map_ns:
+                        next_map_ns = now + 5_000_000_000
+                        self._store_maps(sources, monitors, rec)
+
                     # grades
                     if grader is not None:
                         for job, result in grader.results():
@@ -891,6 +910,7 @@ class _Session:
                         _safe(lambda src=src, t=tick.deadline_ns:
                               self._poll(src, monitors, rec, t, log))
             end_ns = clock.now_ns()
+            _safe(lambda: self._store_maps(sources, monitors, rec))
             _safe(lambda: cmd_rows.flush(rec))
             _safe(lambda: state_rows.flush(rec))
             if grader is not None:
@@ -924,6 +944,22 @@ class _Session:
                              interrupted_by_ctrl_c=self._ctrl_c)
 
     # -- helpers of the loop --------------------------------------------------------
+    def _store_maps(self, sources: list, monitors: dict, rec: Any) -> None:
+        """Store each stream's current device-to-session clock map when it changed."""
+        for src in sources:
+            try:
+                maps = src.clock_maps()
+            except Exception:
+                continue
+            for name, cmap in maps.items():
+                m = monitors.get(name)
+                if m is None or cmap is None or getattr(m, "_map", None) == cmap:
+                    continue
+                m._map = cmap
+                rec.set_clock_map(name, cmap)
+                m.status.offset_ms = cmap.offset_ns * 1e-6
+                m.status.offset_unc_ms = cmap.uncertainty_ns * 1e-6
+
     def _segment(self, seg: Any, rec: Any, now: int, log: Callable, program: Any) -> None:
         st = self.status
         st.phase = seg.kind.replace("_", " ")
@@ -1054,7 +1090,7 @@ class _Session:
         steps = np.diff(np.concatenate([[m.last_seq], sq])) if m.last_seq is not None \
             else np.diff(sq)
         missing = int(np.sum(steps - 1))
-        if missing > 0:
+        if missing > 0 and not m.own_events:
             m.dropped += missing
             m.status.dropped = m.dropped
             rec.event(now, "dropped", m.info.name, {"missing": missing,
@@ -1081,16 +1117,17 @@ class _Session:
                 m.gaps += 1
                 m.status.gaps = m.gaps
                 m.status.silent = True
-                rec.event(now, "gap", m.info.name, {"state": "silent",
-                                                    "silent_s": silent_for * 1e-9,
-                                                    "last_sample_ns": m.last_t_ns})
+                if not m.own_events:
+                    rec.event(now, "gap", m.info.name, {"state": "silent",
+                                                        "silent_s": silent_for * 1e-9,
+                                                        "last_sample_ns": m.last_t_ns})
                 warn(f"stream {m.info.name} is silent (no sample for {silent_for * 1e-9:.1f} s)")
                 if self.plan.on_silent == "pause":
                     pause("silence", now)
         elif m.last_recv_ns is not None and m.last_recv_ns > m.silent_since_ns:
-            rec.event(now, "gap", m.info.name, {"state": "back",
-                                                "silent_s": (m.last_recv_ns - m.silent_since_ns)
-                                                * 1e-9})
+            if not m.own_events:
+                rec.event(now, "gap", m.info.name, {
+                    "state": "back", "silent_s": (m.last_recv_ns - m.silent_since_ns) * 1e-9})
             self.status.warnings.append(f"{now * 1e-9:7.2f} s  stream {m.info.name} is back")
             m.silent_since_ns = None
             m.status.silent = False
