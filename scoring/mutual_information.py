@@ -9,14 +9,14 @@ import numpy as np
 from echoreo.errors import ScoringInputError
 from echoreo.scoring._checks import as_series, check_positive_int, require_not_constant
 
-__all__ = ["ami", "choose_delay", "sturges_bins"]
+__all__ = ["ami", "choose_delay", "freedman_diaconis_bins", "sturges_bins"]
 
 # Lags evaluated per vectorised pass of choose_delay before it looks for a minimum.
 _LAG_CHUNK = 32
 
 
 def sturges_bins(n: int) -> int:
-    r"""Default number of histogram bins: Sturges' rule.
+    r"""Number of histogram bins by Sturges' rule (fallback of :func:`freedman_diaconis_bins`).
 
     .. math:: k = \lceil \log_2 n \rceil + 1
 
@@ -28,42 +28,67 @@ def sturges_bins(n: int) -> int:
     return math.ceil(math.log2(max(n, 1))) + 1
 
 
-def _weights(series: np.ndarray, bins: int) -> np.ndarray:
-    """Quadratic B-spline bin weights of every sample, shape (n, bins), rows summing to 1.
+def freedman_diaconis_bins(x: np.ndarray) -> int:
+    r"""Default number of bins: the Freedman-Diaconis width over the range of the series.
+
+    .. math:: h = 2\,\mathrm{IQR}\, n^{-1/3}, \qquad k = \lceil (\max x - \min x) / h \rceil,
+
+    clipped to :math:`3 \le k \le \lfloor\sqrt{n}\rfloor` (at least the three bins the
+    quadratic B-spline spreads over; at most as many bins per axis as the square root
+    of the sample count, so the :math:`k^2` cells of the joint histogram hold about one
+    pair each). Sturges' rule is used when the interquartile range is zero.
+
+    References
+    ----------
+    D. Freedman and P. Diaconis (1981). On the histogram as a density estimator:
+    L2 theory. *Zeitschrift fuer Wahrscheinlichkeitstheorie und verwandte Gebiete*
+    57(4):453-476.
+    """
+    n = x.shape[0]
+    q75, q25 = np.percentile(x, [75.0, 25.0])
+    iqr = q75 - q25
+    if iqr <= 0.0:
+        return sturges_bins(n)
+    width = 2.0 * iqr * n ** (-1.0 / 3.0)
+    k = math.ceil(float(np.ptp(x)) / width)
+    return int(min(max(k, 3), max(3, math.isqrt(n))))
+
+
+def _weights(series: np.ndarray, bins: int) -> tuple[np.ndarray, np.ndarray]:
+    """Bins and weights of every sample: ``idx``, ``w`` of shape (n, 3), rows of w summing to 1.
 
     The range of the series is mapped onto ``[0, bins - 2]``; a sample at
     position ``i0 + f`` (integer ``i0``, ``0 <= f <= 1``) gives bins ``i0, i0 + 1,
     i0 + 2`` the uniform quadratic B-spline weights ``(1 - f)^2 / 2``,
     ``1/2 + f - f^2``, ``f^2 / 2`` (after Daub et al. 2004). With fewer than three
-    bins, plain equal-width bins are used.
+    bins, plain equal-width bins are used (shape (n, 1)).
     """
     n = series.shape[0]
-    weights = np.zeros((n, bins))
     lo = series.min()
     width = series.max() - lo
     if width == 0.0:
-        weights[:, 0] = 1.0
-        return weights
-    rows = np.arange(n)
+        return np.zeros((n, 1), dtype=np.int64), np.ones((n, 1))
     if bins < 3:
         codes = np.minimum(((series - lo) * (bins / width)).astype(np.int64), bins - 1)
-        weights[rows, codes] = 1.0
-        return weights
+        return codes[:, None], np.ones((n, 1))
     z = (series - lo) * ((bins - 2) / width)
     i0 = np.minimum(z.astype(np.int64), bins - 3)
     f = z - i0
-    weights[rows, i0] = 0.5 * (1.0 - f) ** 2
-    weights[rows, i0 + 1] = 0.5 + f - f * f
-    weights[rows, i0 + 2] = 0.5 * f * f
-    return weights
+    idx = i0[:, None] + np.arange(3)[None, :]
+    w = np.column_stack([0.5 * (1.0 - f) ** 2, 0.5 + f - f * f, 0.5 * f * f])
+    return idx, w
 
 
-def _ami_lags(weights: np.ndarray, lags: np.ndarray) -> np.ndarray:
-    """AMI (nats) for each lag in ``lags``; the joint histogram is one matrix product."""
-    n = weights.shape[0]
+def _ami_lags(weights: tuple[np.ndarray, np.ndarray], bins: int, lags: np.ndarray) -> np.ndarray:
+    """AMI (nats) for each lag in ``lags``; one weighted bincount per lag."""
+    idx, w = weights
+    n = idx.shape[0]
+    cells = bins * bins
     out = np.empty(lags.shape[0])
     for k, lag in enumerate(lags):
-        p = (weights[: n - lag].T @ weights[lag:]) / (n - lag)
+        keys = (idx[: n - lag, :, None] * bins + idx[lag:, None, :]).ravel()
+        mass = (w[: n - lag, :, None] * w[lag:, None, :]).ravel()
+        p = np.bincount(keys, weights=mass, minlength=cells).reshape(bins, bins) / (n - lag)
         px = p.sum(axis=1)
         py = p.sum(axis=0)
         outer = px[:, None] * py[None, :]
@@ -112,9 +137,9 @@ def ami(x: object, max_lag: int, bins: int | None = None) -> np.ndarray:
     max_lag : int
         Largest lag :math:`\tau_{max}`, in samples (``0 <= max_lag <= n - 2``).
     bins : int, optional
-        Number of bins :math:`k`; default Sturges' rule
-        :math:`\lceil\log_2 n\rceil + 1` (Sturges 1926). Fewer than 3 bins fall back
-        to a plain histogram.
+        Number of bins :math:`k`; default the Freedman-Diaconis rule
+        (:func:`freedman_diaconis_bins`; Freedman & Diaconis 1981). Fewer than 3 bins
+        fall back to a plain histogram.
 
     Returns
     -------
@@ -135,14 +160,15 @@ def ami(x: object, max_lag: int, bins: int | None = None) -> np.ndarray:
     information using B-spline functions -- an improved similarity measure for
     analysing gene expression data. *BMC Bioinformatics* 5:118.
 
-    H. A. Sturges (1926). The choice of a class interval. *Journal of the
-    American Statistical Association* 21(153):65-66.
+    D. Freedman and P. Diaconis (1981). On the histogram as a density estimator:
+    L2 theory. *Zeitschrift fuer Wahrscheinlichkeitstheorie und verwandte Gebiete*
+    57(4):453-476.
     """
     series = as_series(x)
     n = series.shape[0]
     max_lag = _check_lag(max_lag, n)
-    bins = sturges_bins(n) if bins is None else check_positive_int(bins, "bins")
-    return _ami_lags(_weights(series, bins), np.arange(max_lag + 1))
+    bins = freedman_diaconis_bins(series) if bins is None else check_positive_int(bins, "bins")
+    return _ami_lags(_weights(series, bins), bins, np.arange(max_lag + 1))
 
 
 def _first_local_minimum(values: np.ndarray) -> int | None:
@@ -176,7 +202,7 @@ def choose_delay(x: object, max_lag: int | None = None, bins: int | None = None)
         Largest lag searched, in samples; default ``min(200, n // 4)`` (at least 1),
         so that every lag keeps three quarters of the samples as pairs.
     bins : int, optional
-        Number of histogram bins; default Sturges' rule (see :func:`ami`).
+        Number of bins; default the Freedman-Diaconis rule (see :func:`ami`).
 
     Returns
     -------
@@ -204,14 +230,14 @@ def choose_delay(x: object, max_lag: int | None = None, bins: int | None = None)
         max_lag = max(1, min(200, n // 4))
     max_lag = _check_lag(max_lag, n)
     max_lag = max(max_lag, 1)
-    bins = sturges_bins(n) if bins is None else check_positive_int(bins, "bins")
+    bins = freedman_diaconis_bins(series) if bins is None else check_positive_int(bins, "bins")
     weights = _weights(series, bins)
     values = np.empty(0)
     # Evaluate one lag beyond max_lag when possible, so that max_lag itself can be a minimum.
     last = min(max_lag + 1, n - 2)
     for start in range(0, last + 1, _LAG_CHUNK):
         lags = np.arange(start, min(start + _LAG_CHUNK, last + 1))
-        values = np.concatenate([values, _ami_lags(weights, lags)])
+        values = np.concatenate([values, _ami_lags(weights, bins, lags)])
         tau = _first_local_minimum(values)
         if tau is not None and tau <= max_lag:
             return tau

@@ -13,6 +13,7 @@ not by N^2 (see ``_CELL_BUDGET`` and ``_POINT_BUDGET``).
 from __future__ import annotations
 
 import math
+from concurrent.futures import ThreadPoolExecutor
 from typing import Literal
 
 import numpy as np
@@ -58,6 +59,23 @@ def _pair_distances(a: np.ndarray, b: np.ndarray, norm: str) -> np.ndarray:
     if norm == "euclidean":
         np.sqrt(out, out=out)
     return out
+
+
+def _within(a: np.ndarray, b_t: np.ndarray, radius: float, norm: str) -> np.ndarray:
+    """Boolean (g, w): row i of ``a`` (g, m) within ``radius`` of column j of ``b_t`` (m, w)."""
+    m = a.shape[1]
+    if norm == "max":
+        mask = np.abs(np.subtract.outer(a[:, 0], b_t[0])) <= radius
+        for k in range(1, m):
+            mask &= np.abs(np.subtract.outer(a[:, k], b_t[k])) <= radius
+        return mask
+    acc = np.zeros((a.shape[0], b_t.shape[1]))
+    for k in range(m):
+        gap = np.subtract.outer(a[:, k], b_t[k])
+        acc += gap * gap if norm == "euclidean" else np.abs(gap)
+    if norm == "euclidean":
+        return acc <= radius * radius
+    return acc <= radius
 
 
 def _inputs(x: object, y: object) -> tuple[np.ndarray, np.ndarray, bool]:
@@ -150,9 +168,11 @@ class _LineCounter:
         both = np.concatenate([xs, ys]) if not auto else xs
         # Sweep along the coordinate of largest spread: it prunes the most pairs.
         self.key = int(np.argmax(both.max(axis=0) - both.min(axis=0)))
-        self.col_order = np.argsort(ys[:, self.key], kind="stable")
-        self.ys_sorted = np.ascontiguousarray(ys[self.col_order])
-        self.key_sorted = self.ys_sorted[:, self.key]
+        col_order = np.argsort(ys[:, self.key], kind="stable")
+        # Coordinates of y sorted along the sweep key, one contiguous row per coordinate.
+        self.ys_t = np.ascontiguousarray(ys[col_order].T)
+        self.key_sorted = self.ys_t[self.key]
+        self.col_slot = col_order + 1  # dense-block column of each sorted y
         self.diag_hist = np.zeros(max(self.n, self.m_cols) + 1, dtype=np.int64)
         self.vert_hist = np.zeros(self.m_cols + 1, dtype=np.int64)
         self.points = 0
@@ -160,78 +180,82 @@ class _LineCounter:
         # diagonal k = j - i + n (0 .. n + m); -1 where no line is open.
         self.open_start = np.full(self.n + self.m_cols + 1, -1, dtype=np.int64)
 
-    def _recurrences(self, lo: int, hi: int) -> tuple[np.ndarray, np.ndarray]:
-        """(row - lo, column) of every recurrence in rows lo..hi-1."""
+    def _fill(self, dense: np.ndarray, lo: int, hi: int, first: int) -> None:
+        """Mark the recurrences of rows lo..hi-1 in ``dense`` (row r at ``r - first``,
+        column j at ``j + 1``)."""
         rows = np.arange(lo, hi)
         order = rows[np.argsort(self.xs[lo:hi, self.key], kind="stable")]
-        out_r: list[np.ndarray] = []
-        out_c: list[np.ndarray] = []
         r = self.radius
         for g in range(0, order.shape[0], _GROUP):
             grp = order[g : g + _GROUP]
-            pts = self.xs[grp]
-            kv = pts[:, self.key]
+            kv = self.xs[grp, self.key]
             c0 = int(np.searchsorted(self.key_sorted, kv.min() - r, side="left"))
             c1 = int(np.searchsorted(self.key_sorted, kv.max() + r, side="right"))
             if c1 <= c0:
                 continue
-            dist = _pair_distances(pts, self.ys_sorted[c0:c1], self.norm)
-            ri, ci = np.nonzero(dist <= r)
-            if ri.size == 0:
-                continue
-            out_r.append(grp[ri] - lo)
-            out_c.append(self.col_order[c0 + ci])
-        if not out_r:
-            empty = np.empty(0, dtype=np.int64)
-            return empty, empty
-        rr = np.concatenate(out_r)
-        cc = np.concatenate(out_c)
+            mask = _within(self.xs[grp], self.ys_t[:, c0:c1], r, self.norm)
+            dense[(grp - first)[:, None], self.col_slot[None, c0:c1]] = mask
         if self.theiler > 0:
-            keep = np.abs(rr + lo - cc) >= self.theiler
-            rr, cc = rr[keep], cc[keep]
-        return rr, cc
+            # Clear the Theiler band |i - j| < w of these rows.
+            for offset in range(-(self.theiler - 1), self.theiler):
+                cols = rows + offset
+                ok = (cols >= 0) & (cols < self.m_cols)
+                dense[rows[ok] - first, cols[ok] + 1] = False
 
     def run(self) -> None:
         n, m = self.n, self.m_cols
-        stride = m + 2
+        words = -(-(m + 2) // 64)  # 64-bit words per packed row
+        stride = 64 * words
         rows_per_block = max(1, min(n, _CELL_BUDGET // stride, 64))
-        a = 0
-        while a < n:
+        # The dense block of the next rows is filled on a second thread while this one
+        # counts lines (numpy releases the GIL in both).
+        with ThreadPoolExecutor(max_workers=1) as pool:
+            a = 0
             b = min(n, a + rows_per_block)
-            points = self._block(a, b, stride)
-            per_row = max(points / (b - a), 1.0)
-            rows_per_block = int(max(1, min(n, _CELL_BUDGET // stride, _POINT_BUDGET / per_row)))
-            a = b
+            pending = pool.submit(self._dense_block, a, b, stride)
+            while a < n:
+                dense = pending.result()
+                points = int(np.count_nonzero(dense))
+                per_row = max(points / (b - a + 2), 1.0)
+                rows_per_block = int(max(1, min(n, _CELL_BUDGET // stride,
+                                                _POINT_BUDGET / per_row)))
+                a_next, b_next = b, min(n, b + rows_per_block)
+                if a_next < n:
+                    pending = pool.submit(self._dense_block, a_next, b_next, stride)
+                self._count(dense, a, b, stride, words)
+                a, b = a_next, b_next
 
-    def _block(self, a: int, b: int, stride: int) -> int:
-        n = self.n
-        lo, hi = max(0, a - 1), min(n, b + 1)
-        # Dense block: row 0 is row a - 1 (zeros at the top), row b - a + 1 is row b
-        # (zeros at the bottom); columns 0 and m + 1 are zero padding.
-        rows_here = b - a
-        dense = np.zeros((rows_here + 2, stride), dtype=bool)
-        rr, cc = self._recurrences(lo, hi)
-        flat = dense.ravel()
-        flat[(rr + lo - a + 1) * stride + cc + 1] = True
-        lin = np.flatnonzero(flat[stride : (rows_here + 1) * stride]) + stride
-        self.points += lin.size
-        if lin.size == 0:
-            self._close_diagonals(np.empty(0, np.int64), np.empty(0, np.int64), a, b, stride)
-            return 0
-        # Vertical lines (fixed row i, consecutive columns j) end inside the row.
-        v_start = lin[~flat[lin - 1]]
-        v_end = lin[~flat[lin + 1]]
+    def _dense_block(self, a: int, b: int, stride: int) -> np.ndarray:
+        """Boolean block of rows a-1 .. b (zero rows outside the plot), padded columns."""
+        dense = np.zeros((b - a + 2, stride), dtype=bool)
+        self._fill(dense, max(0, a - 1), min(self.n, b + 1), a - 1)
+        return dense
+
+    def _count(self, dense: np.ndarray, a: int, b: int, stride: int, words: int) -> None:
+        rows = b - a
+        packed = np.packbits(dense, axis=None, bitorder="little").view("<u8")
+        own = packed[words : (rows + 1) * words]
+        self.points += _popcount(own)
+        left = _shift_up(packed)    # bit c holds column c - 1
+        right = _shift_down(packed)  # bit c holds column c + 1
+        # Vertical lines (fixed row i, consecutive columns j) end inside their row.
+        v_start = _bit_positions(own & ~left[words : (rows + 1) * words])
+        v_end = _bit_positions(own & ~right[words : (rows + 1) * words])
         self.vert_hist += np.bincount(v_end - v_start + 1, minlength=self.vert_hist.size)[
             : self.vert_hist.size]
-        diag = lin
+        diag = own
         if self.auto and self.theiler == 0:
             # The line of identity is never a diagonal line (Marwan et al. 2007).
-            diag = lin[(lin // stride - 1 + a) != (lin % stride - 1)]
-        pred = flat[diag - stride - 1]
-        succ = flat[diag + stride + 1]
-        self.diag_hist[1] += int(np.count_nonzero(~pred & ~succ))
-        self._close_diagonals(diag[~pred & succ], diag[pred & ~succ], a, b, stride)
-        return int(lin.size)
+            diag = own.copy()
+            col = np.arange(a, b) + 1
+            where = np.arange(rows) * words + col // 64
+            diag[where] &= ~(np.uint64(1) << (col % 64).astype(np.uint64))
+        d_start = diag & ~left[: rows * words]            # no point up-left of it
+        d_end = diag & ~right[2 * words : (rows + 2) * words]  # none down-right
+        self.diag_hist[1] += _popcount(d_start & d_end)
+        offset = words * 64
+        self._close_diagonals(_bit_positions(d_start & ~d_end) + offset,
+                              _bit_positions(d_end & ~d_start) + offset, a, b, stride)
 
     def _close_diagonals(self, starts: np.ndarray, ends: np.ndarray, a: int, b: int,
                          stride: int) -> None:
@@ -262,6 +286,36 @@ class _LineCounter:
         if all_lengths.size:
             self.diag_hist += np.bincount(all_lengths, minlength=self.diag_hist.size)[
                 : self.diag_hist.size]
+
+
+def _popcount(words: np.ndarray) -> int:
+    """Number of set bits in a uint64 array."""
+    if hasattr(np, "bitwise_count"):
+        return int(np.bitwise_count(words).sum(dtype=np.int64))
+    return int(np.unpackbits(words.view(np.uint8)).sum(dtype=np.int64))
+
+
+def _shift_up(words: np.ndarray) -> np.ndarray:
+    """Bit string moved one bit towards higher positions (bit c takes bit c - 1)."""
+    out = words << np.uint64(1)
+    out[1:] |= words[:-1] >> np.uint64(63)
+    return out
+
+
+def _shift_down(words: np.ndarray) -> np.ndarray:
+    """Bit string moved one bit towards lower positions (bit c takes bit c + 1)."""
+    out = words >> np.uint64(1)
+    out[:-1] |= words[1:] << np.uint64(63)
+    return out
+
+
+def _bit_positions(words: np.ndarray) -> np.ndarray:
+    """Ascending positions of the set bits of a little-endian uint64 bit string."""
+    idx = np.flatnonzero(words)
+    if idx.size == 0:
+        return np.empty(0, dtype=np.int64)
+    flat = np.flatnonzero(np.unpackbits(words[idx].view(np.uint8), bitorder="little").view(bool))
+    return idx[flat >> 6] * 64 + (flat & 63)
 
 
 def _ratio(num: float, den: float) -> float:
