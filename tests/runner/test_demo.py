@@ -10,16 +10,13 @@ import pandas as pd
 from echoreo.sessionfile import SessionFile
 
 
-def test_demo_runs_end_to_end_and_ranks_the_wrong_mirror_last(tmp_path):
+def test_demo_runs_end_to_end_and_ranks_the_wrong_mirror_last(demo_study):
     """Three virtual participants (a good imitator, one who mirrors the wrong way, a
     quick good imitator): the command exits 0, writes complete session files with
     scores, the scores table and the report, and ranks the wrong-way mirror last.
     (Expected order: imitating the anatomical instead of the mirrored side moves the
     wrong arm, which a per-repetition comparison must grade lower.)"""
-    out = tmp_path / "demo"
-    proc = subprocess.run([sys.executable, "-m", "echoreo.runner.cli", "demo", "--out",
-                           str(out), "--participants", "3", "--seed", "5"],
-                          capture_output=True, text=True, timeout=300, check=False)
+    out, proc = demo_study["out"], demo_study["proc"]
     assert proc.returncode == 0, proc.stderr[-3000:]
     assert "report.html" in proc.stdout
     sessions = sorted((out / "sessions").glob("*.sqlite"))
