@@ -40,6 +40,10 @@ _EXPORTS: dict[str, str] = {
     "check_endpoint": "security",
     "generate_keys": "security",
     "ntp_offset_delay": "clocksync",
+    "Dropout": "simulated",
+    "SimulatedFollowers": "simulated",
+    "SimulatedLeader": "simulated",
+    "clock_map_for_device": "simulated",
 }
 
 __all__ = sorted(_EXPORTS)
