@@ -81,42 +81,48 @@ def _line_fit(x: np.ndarray, y: np.ndarray) -> tuple[float, float]:
 class NtpClockSync:
     """Offset and drift of one device from NTP-style four-timestamp exchanges.
 
-    Each exchange gives an offset :math:`\\theta_i` and delay :math:`\\delta_i`
-    (:func:`ntp_offset_delay`) at the device time :math:`(T_2+T_3)/2`.
-    Exchanges are taken in consecutive groups of up to ``group`` and only the
-    lowest-delay exchange of each group is kept (the clock filter of RFC 5905,
-    section 10, which keeps the lowest-delay sample of the last eight); kept
-    samples whose delay exceeds ``min + 3 (median - min)`` of the kept delays are
-    discarded as queued. A least-squares line through the kept offsets over the
-    last ``horizon_s`` of device time gives the offset at the newest sample and
-    the drift (its slope):
+    Each exchange :math:`i` gives an offset :math:`\\theta_i` and a round-trip
+    delay :math:`\\delta_i` (:func:`ntp_offset_delay`) at the device time
+    :math:`x_i = (T_2+T_3)/2`. The error of :math:`\\theta_i` is at most
+    :math:`\\delta_i/2` and is smallest for the exchanges of lowest delay (RFC
+    5905, sections 8 and 10: the clock filter keeps the lowest-delay sample of
+    the last eight). Two regimes:
 
-    .. math::
+    * While the exchanges span less than ``drift_span_s`` of device time, the
+      offset is that of the newest exchange whose delay is within 1.5 times
+      the lowest (a clock filter in the spirit of RFC 5905: low delay, and
+      recent because an unknown drift biases old offsets); the drift is the
+      last one learned (0 at first).
+    * Afterwards a weighted least-squares line through every exchange of the
+      last ``horizon_s`` gives offset and drift, with weights that keep the
+      lowest-delay exchanges and all but ignore queued ones:
 
-        \\theta(t_d) = \\theta_\\mathrm{ref} + \\delta\\,(t_d - t_\\mathrm{ref})
+      .. math::
 
-    The uncertainty reported is half the lowest kept delay (RFC 5905's error
-    bound) plus the root-mean-square residual of the fit.
+          \\theta(x) = \\theta_\\mathrm{ref} + \\delta\\,(x - x_\\mathrm{ref}),
+          \\qquad w_i = \\bigl(\\delta_i - \\delta_\\min + \\tfrac14 \\delta_\\min\\bigr)^{-2}
+
+      with :math:`x_\\mathrm{ref}` the newest exchange (so the map's offset is
+      the current one).
+
+    The uncertainty reported is half the lowest delay (RFC 5905's error bound)
+    plus the weighted root-mean-square residual of the fit.
 
     Parameters
     ----------
-    group : int
-        Exchanges per clock-filter group (8 in RFC 5905). Early on, while fewer
-        than ``2 * group`` exchanges exist, every exchange is its own group so a
-        drift can be estimated from the start.
     horizon_s : float
-        Device-time span of kept samples used in the fit, s.
-    min_span_s : float
-        Below this device-time span of kept samples no drift is fitted
-        (the offset is the mean), s.
+        Device-time span of exchanges used in the fit, s.
+    drift_span_s : float
+        Device-time span of exchanges needed before a drift is fitted, s. A
+        slope fitted over a few seconds of millisecond-noisy offsets would be
+        worse than none (1 ms of noise over 2 s is 500 ppm).
     """
 
     method = "ntp"
 
-    def __init__(self, group: int = 8, horizon_s: float = 600.0, min_span_s: float = 2.0):
-        self.group = group
+    def __init__(self, horizon_s: float = 600.0, drift_span_s: float = 10.0):
         self.horizon_s = horizon_s
-        self.min_span_s = min_span_s
+        self.drift_span_s = drift_span_s
         self._raw: deque[tuple[float, float, float]] = deque(maxlen=4096)
         self._map = ClockMap(method="ntp")
         self.n_exchanges_ = 0
@@ -146,30 +152,26 @@ class NtpClockSync:
 
     def _refit(self) -> None:
         raw = np.asarray(self._raw, dtype=np.float64)
-        newest = raw[-1, 0]
-        raw = raw[raw[:, 0] >= newest - self.horizon_s * 1e9]
-        g = self.group if raw.shape[0] >= 2 * self.group else 1
-        n_groups = raw.shape[0] // g
-        # groups counted from the newest so the latest exchanges always form a group
-        rows = raw[raw.shape[0] - n_groups * g:].reshape(n_groups, g, 3)
-        pick = rows[np.arange(n_groups), np.argmin(rows[:, :, 2], axis=1)]
-        d = pick[:, 2]
+        ref = float(raw[-1, 0])
+        raw = raw[raw[:, 0] >= ref - self.horizon_s * 1e9]
+        x, y, d = raw[:, 0] - ref, raw[:, 1], raw[:, 2]
         d_min = float(d.min())
-        keep = d <= d_min + 3.0 * (float(np.median(d)) - d_min) + 1.0
-        pick = pick[keep]
-        x = pick[:, 0]
-        ref = float(x[-1])
-        if float(np.ptp(x)) < self.min_span_s * 1e9:
-            a, b = float(np.mean(pick[:, 1])), 0.0
-            if self._map.drift_ppm != 0.0:  # keep a drift already learned over a longer span
-                b = self._map.drift_ppm * 1e-6
-                a = float(np.mean(pick[:, 1] - b * (x - ref)))
+        if float(np.ptp(x)) < self.drift_span_s * 1e9:
+            b = self._map.drift_ppm * 1e-6
+            # the newest exchange of near-lowest delay: recent (an unknown drift biases
+            # old offsets) and good (RFC 5905 clock filter: low delay, small error)
+            good = np.flatnonzero(d <= 1.5 * d_min + 1.0)
+            i = int(good[-1])
+            a = float(y[i] - b * x[i])
+            rms = 0.0
         else:
-            a, b = _line_fit(x - ref, pick[:, 1])
-        resid = pick[:, 1] - (a + b * (x - ref))
-        rms = float(np.sqrt(np.mean(resid**2))) if resid.size > 2 else 0.0
-        self._map = ClockMap(offset_ns=round(a), drift_ppm=b * 1e6,
-                             ref_dev_ns=round(ref),
+            w = 1.0 / (d - d_min + 0.25 * d_min + 1.0) ** 2
+            sw = np.sqrt(w)
+            coef, *_ = np.linalg.lstsq(np.column_stack([sw, sw * x]), sw * y, rcond=None)
+            a, b = float(coef[0]), float(coef[1])
+            resid = y - (a + b * x)
+            rms = float(np.sqrt(np.sum(w * resid**2) / np.sum(w)))
+        self._map = ClockMap(offset_ns=round(a), drift_ppm=b * 1e6, ref_dev_ns=round(ref),
                              uncertainty_ns=round(d_min / 2.0 + rms), method="ntp")
 
     def clock_map(self) -> ClockMap:

@@ -48,12 +48,17 @@ class DeviceClock:
 
     .. math::
 
-        t_d = \\theta_d + (1 + \\delta)\\, s\\, (m - m_0)
+        T = s\\,(m - m_0) + J \\left\\lfloor \\frac{m - m_0}{P} \\right\\rfloor,
+        \\qquad t_d = \\theta_d + (1 + \\delta)\\, T
 
     with the monotonic clock :math:`m` (ns, ``time.monotonic_ns``, shared by
-    all processes of one Linux host), origin :math:`m_0`, time scale :math:`s`
-    (1 for real time; larger compresses a long simulated run into a short
-    real one), drift :math:`\\delta` and offset :math:`\\theta_d`.
+    all processes of one Linux host), origin :math:`m_0`, time scale :math:`s`,
+    and optional leaps of :math:`J` every :math:`P` of real time; :math:`T` is
+    the simulated true time, :math:`\\delta` the drift and :math:`\\theta_d`
+    the offset. A real device is ``DeviceClock()`` (:math:`s = 1`, no leaps,
+    no offset). Leaps compress a long run into a short one while time between
+    leaps runs at real speed, so message delays stay those of the real link
+    (scaling them by :math:`s` would magnify every delay and asymmetry).
 
     Parameters
     ----------
@@ -65,21 +70,35 @@ class DeviceClock:
         :math:`s`.
     origin_ns : int
         :math:`m_0`, ns of ``time.monotonic_ns()``.
+    leap_s, leap_every_s : float
+        :math:`J` and :math:`P`, s (no leaps when either is 0).
     """
 
     offset_s: float = 0.0
     drift_ppm: float = 0.0
     scale: float = 1.0
     origin_ns: int = 0
+    leap_s: float = 0.0
+    leap_every_s: float = 0.0
+
+    def true_ns(self, m_ns: int | None = None) -> float:
+        """Simulated true time :math:`T` (ns) at monotonic time ``m_ns`` (default now)."""
+        m = (time.monotonic_ns() if m_ns is None else m_ns) - self.origin_ns
+        t = self.scale * m
+        if self.leap_s > 0 and self.leap_every_s > 0:
+            t += self.leap_s * 1e9 * (m // round(self.leap_every_s * 1e9))
+        return t
 
     def now_ns(self) -> int:
         """Device time now, ns."""
-        m = time.monotonic_ns() - self.origin_ns
-        return round(self.offset_s * 1e9 + (1.0 + self.drift_ppm * 1e-6) * self.scale * m)
+        return round(self.offset_s * 1e9 + (1.0 + self.drift_ppm * 1e-6) * self.true_ns())
 
     def real_s(self, device_span_ns: float) -> float:
-        """Real seconds that pass while device time advances by ``device_span_ns``."""
-        return device_span_ns / (1e9 * self.scale * (1.0 + self.drift_ppm * 1e-6))
+        """Real seconds that pass (on average) while device time advances by ``device_span_ns``."""
+        rate = self.scale
+        if self.leap_s > 0 and self.leap_every_s > 0:
+            rate += self.leap_s / self.leap_every_s
+        return device_span_ns / (1e9 * rate * (1.0 + self.drift_ppm * 1e-6))
 
 
 def _boot_id() -> int:

@@ -84,7 +84,8 @@ class _FollowerEngine(LinkEngine):
         return env.clock_map() if env is not None else ClockMap(method="envelope")
 
     def synced(self, peer: Peer) -> bool:
-        return peer.sync.ready if peer.time_sync else True
+        # four exchanges (half the connect burst) before the first sample is mapped
+        return peer.sync.n_exchanges_ >= 4 if peer.time_sync else True
 
     def malformed(self, peer: Peer, reason: str, t_rx: int, stream: str | None = None) -> None:
         self.malformed_total += 1

@@ -30,6 +30,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--clock-drift-ppm", type=float, default=0.0, help="device clock drift")
     parser.add_argument("--time-scale", type=float, default=1.0,
                         help="device seconds per real second (>1 compresses a long run)")
+    parser.add_argument("--time-leap", type=float, nargs=2, default=(0.0, 0.0),
+                        metavar=("LEAP_S", "EVERY_S"),
+                        help="device time leaps LEAP_S every EVERY_S real s (time-lapse tests)")
     parser.add_argument("--clock-origin-ns", type=int, default=None,
                         help="time.monotonic_ns() of device-clock origin (default: now)")
     parser.add_argument("--no-time-sync", action="store_true",
@@ -64,7 +67,8 @@ def run(args: argparse.Namespace, console: Console) -> int:
         streams = synthetic_streams(names, args.rate, start_seq=args.start_seq)
     origin = time.monotonic_ns() if args.clock_origin_ns is None else args.clock_origin_ns
     clock = DeviceClock(offset_s=args.clock_offset, drift_ppm=args.clock_drift_ppm,
-                        scale=args.time_scale, origin_ns=origin)
+                        scale=args.time_scale, origin_ns=origin,
+                        leap_s=args.time_leap[0], leap_every_s=args.time_leap[1])
     keys = CurveKeys(args.keys) if args.keys else None
     with contextlib.ExitStack() as stack:
         log = stack.enter_context(open(args.log, "w")) if args.log else None
