@@ -102,3 +102,28 @@ def test_back_pressure_bound_keeps_all_rows(tmp_path):
     rec.close()
     with SessionFile(tmp_path / "s.sqlite") as sf:
         assert len(sf.read_stream("s")) == 2000
+
+
+EXITING_CHILD = r"""
+import sys
+import numpy as np
+from echoreo.runner.recorder import Recorder
+rec = Recorder(sys.argv[1], {"participant": "P04"})
+rec.add_stream({"name": "s", "kind": "x", "channels": ["v"], "units": ["1"], "rate_hz": 10.0})
+rec.write("s", np.arange(500), np.arange(500), np.arange(500), np.ones(500))
+# the program ends without close(): the recorder's exit hook commits what was handed over
+"""
+
+
+def test_exit_without_close_commits_and_marks_interrupted(tmp_path):
+    """A program that forgets close() still keeps its data; the session is 'interrupted'."""
+    import subprocess
+    import sys
+
+    path = tmp_path / "P04.sqlite"
+    proc = subprocess.run([sys.executable, "-c", EXITING_CHILD, str(path)], timeout=60,
+                          capture_output=True, text=True)
+    assert proc.returncode == 0, proc.stderr
+    with SessionFile(path) as sf:
+        assert sf.state == "interrupted" and not sf.marked_interrupted
+        assert len(sf.read_stream("s")) == 500
