@@ -124,7 +124,7 @@ def _readonly(a: np.ndarray) -> np.ndarray:
     return a
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)
 class Timeline:
     """A compiled choreography: joint commands sampled at the command rate.
 
@@ -152,6 +152,11 @@ class Timeline:
     cues : pandas.DataFrame
         Columns ``t`` (s) and ``text``: what to show operator and participant
         from that time on.
+
+    Notes
+    -----
+    ``t`` and ``q`` are read-only arrays; timelines compare by identity
+    (``eq=False``), since element-wise array equality has no single truth value.
     """
 
     t: np.ndarray

@@ -62,3 +62,43 @@ def test_format_md_example_loads(tmp_path):
     path.write_text(block.split("```")[0], encoding="utf-8")
     chor = load_choreography(path)
     assert chor.n_repetitions == 4
+
+
+def test_count_cues_and_step_cues(tmp_path):
+    """count: true cues 'i of n' at every repetition start, joined to the step's cue on
+    the first (FORMAT.md section 2); cue times equal the span starts."""
+    tl = load_choreography(DATA_DIR / "warmup-right-arm.yaml").compile()
+    cues = dict(zip(tl.cues["t"].round(9), tl.cues["text"], strict=True))
+    raises = tl.spans[tl.spans["move"] == "raise_right_forward"]
+    starts = raises["t_start"].round(9).tolist()
+    assert cues[starts[0]] == "Raise your right arm forward — 1 of 4"
+    assert [cues[t] for t in starts[1:]] == ["2 of 4", "3 of 4", "4 of 4"]
+
+
+def test_robot_by_relative_path_and_rest_only_sequence(tmp_path, torso):
+    """A robot file given by a path relative to the choreography loads; a sequence of rests
+    alone holds the robot's rest pose."""
+    (tmp_path / "robots").mkdir()
+    (tmp_path / "robots" / "mine.yaml").write_text(torso.text, encoding="utf-8")
+    path = tmp_path / "c.yaml"
+    path.write_text("robot: robots/mine.yaml\nunit: deg\nsequence:\n  - rest: 1.0\n"
+                    "  - rest: 0.5\n", encoding="utf-8")
+    tl = load_choreography(path).compile(20.0)
+    assert tl.robot_name == "torso-e1"
+    np.testing.assert_array_equal(tl.q, np.broadcast_to(torso.rest, tl.q.shape))
+    assert tl.spans["kind"].tolist() == ["rest", "rest"]
+    assert tl.t[-1] == pytest.approx(1.5)
+
+
+def test_hold_first_starts_at_the_hold_pose(tmp_path, torso):
+    """A sequence that begins with a hold starts (and holds) at that pose; the hold's span
+    names the pose and has repetition 0."""
+    path = tmp_path / "c.yaml"
+    path.write_text("robot: torso-e1\nunit: deg\nposes:\n  up: {left_elbow_flexion: 90}\n"
+                    "sequence:\n  - hold: up\n    duration: 2\n", encoding="utf-8")
+    chor = load_choreography(path)
+    tl = chor.compile()
+    j = torso.joint_index("left_elbow_flexion")
+    assert np.allclose(tl.q[:, j], np.radians(90))
+    assert tl.spans.iloc[0][["move", "repetition", "kind"]].tolist() == ["up", 0, "hold"]
+    np.testing.assert_array_equal(chor.start_posture, tl.q[0])
