@@ -161,7 +161,7 @@ class _LineCounter:
     """Blockwise recurrence points and line-length histograms of one recurrence plot."""
 
     def __init__(self, xs: np.ndarray, ys: np.ndarray, radius: float, theiler: int,
-                 auto: bool, norm: str):
+                 auto: bool, norm: str, vmin: int = 2):
         self.xs, self.ys = xs, ys
         self.n, self.m_cols = xs.shape[0], ys.shape[0]
         self.radius, self.theiler, self.auto, self.norm = radius, theiler, auto, norm
@@ -174,7 +174,10 @@ class _LineCounter:
         self.key_sorted = self.ys_t[self.key]
         self.col_slot = col_order + 1  # dense-block column of each sorted y
         self.diag_hist = np.zeros(max(self.n, self.m_cols) + 1, dtype=np.int64)
-        self.vert_hist = np.zeros(self.m_cols + 1, dtype=np.int64)
+        self.vmin = vmin
+        # Vertical lines of at least vmin: their number and their points.
+        self.vert_long_lines = 0
+        self.vert_long_points = 0
         self.points = 0
         # Global start row of the diagonal line open at the current block boundary, per
         # diagonal k = j - i + n (0 .. n + m); -1 where no line is open.
@@ -238,11 +241,7 @@ class _LineCounter:
         self.points += _popcount(own)
         left = _shift_up(packed)    # bit c holds column c - 1
         right = _shift_down(packed)  # bit c holds column c + 1
-        # Vertical lines (fixed row i, consecutive columns j) end inside their row.
-        v_start = _bit_positions(own & ~left[words : (rows + 1) * words])
-        v_end = _bit_positions(own & ~right[words : (rows + 1) * words])
-        self.vert_hist += np.bincount(v_end - v_start + 1, minlength=self.vert_hist.size)[
-            : self.vert_hist.size]
+        self._count_vertical(packed, words, rows)
         diag = own
         if self.auto and self.theiler == 0:
             # The line of identity is never a diagonal line (Marwan et al. 2007).
@@ -256,6 +255,33 @@ class _LineCounter:
         offset = words * 64
         self._close_diagonals(_bit_positions(d_start & ~d_end) + offset,
                               _bit_positions(d_end & ~d_start) + offset, a, b, stride)
+
+    def _count_vertical(self, packed: np.ndarray, words: int, rows: int) -> None:
+        """Vertical lines (fixed row i, consecutive columns j) without listing them.
+
+        With ``E`` the points whose ``vmin - 1`` left neighbours are all recurrent, the
+        lines of length >= vmin are the runs of ``E`` (one start each) and their points are
+        ``E`` spread ``vmin - 1`` columns back; both are bit counts.
+        """
+        own = packed[words : (rows + 1) * words]
+        vmin = self.vmin
+        if vmin > 32:
+            v_start = _bit_positions(own & ~_shift_up(packed)[words : (rows + 1) * words])
+            v_end = _bit_positions(own & ~_shift_down(packed)[words : (rows + 1) * words])
+            lengths = v_end - v_start + 1
+            long = lengths[lengths >= vmin]
+            self.vert_long_lines += int(long.size)
+            self.vert_long_points += int(long.sum())
+            return
+        eroded = packed.copy()
+        for s in range(1, vmin):
+            eroded &= _shift_up(packed, s)
+        starts = eroded & ~_shift_up(eroded)
+        self.vert_long_lines += _popcount(starts[words : (rows + 1) * words])
+        spread = eroded.copy()
+        for s in range(1, vmin):
+            spread |= _shift_down(eroded, s)
+        self.vert_long_points += _popcount(spread[words : (rows + 1) * words])
 
     def _close_diagonals(self, starts: np.ndarray, ends: np.ndarray, a: int, b: int,
                          stride: int) -> None:
@@ -295,17 +321,17 @@ def _popcount(words: np.ndarray) -> int:
     return int(np.unpackbits(words.view(np.uint8)).sum(dtype=np.int64))
 
 
-def _shift_up(words: np.ndarray) -> np.ndarray:
-    """Bit string moved one bit towards higher positions (bit c takes bit c - 1)."""
-    out = words << np.uint64(1)
-    out[1:] |= words[:-1] >> np.uint64(63)
+def _shift_up(words: np.ndarray, s: int = 1) -> np.ndarray:
+    """Bit string moved ``s`` (1 to 63) bits towards higher positions (bit c takes c - s)."""
+    out = words << np.uint64(s)
+    out[1:] |= words[:-1] >> np.uint64(64 - s)
     return out
 
 
-def _shift_down(words: np.ndarray) -> np.ndarray:
-    """Bit string moved one bit towards lower positions (bit c takes bit c + 1)."""
-    out = words >> np.uint64(1)
-    out[:-1] |= words[1:] << np.uint64(63)
+def _shift_down(words: np.ndarray, s: int = 1) -> np.ndarray:
+    """Bit string moved ``s`` (1 to 63) bits towards lower positions (bit c takes c + s)."""
+    out = words >> np.uint64(s)
+    out[:-1] |= words[1:] << np.uint64(64 - s)
     return out
 
 
@@ -428,13 +454,12 @@ def rqa(x: object, y: object = None, *, radius: float | None = None,
             f"the Theiler window {theiler} excludes every pair of a recurrence plot of "
             f"{xs.shape[0]} x {ys.shape[0]} points"
         )
-    counter = _LineCounter(xs, ys, radius, theiler, auto, norm)
+    counter = _LineCounter(xs, ys, radius, theiler, auto, norm, vmin)
     counter.run()
-    d_hist, v_hist = counter.diag_hist, counter.vert_hist
+    d_hist = counter.diag_hist
     d_len = np.arange(d_hist.size)
-    v_len = np.arange(v_hist.size)
     d_long = d_hist[lmin:]
-    v_long = v_hist[vmin:]
+    v_points = float(counter.vert_long_points)
     nonzero = np.flatnonzero(d_hist)
     return {
         "RR": counter.points / pairs,
@@ -442,6 +467,6 @@ def rqa(x: object, y: object = None, *, radius: float | None = None,
         "L": _ratio(float(d_len[lmin:] @ d_long), float(d_long.sum())),
         "Lmax": int(nonzero[-1]) if nonzero.size else 0,
         "ENTR": _entropy(d_long),
-        "LAM": _ratio(float(v_len[vmin:] @ v_long), float(v_len @ v_hist)),
-        "TT": _ratio(float(v_len[vmin:] @ v_long), float(v_long.sum())),
+        "LAM": _ratio(v_points, float(counter.points)),
+        "TT": _ratio(v_points, float(counter.vert_long_lines)),
     }

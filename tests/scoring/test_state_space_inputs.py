@@ -182,20 +182,23 @@ def _trajectory(rng, n):
 
 
 @pytest.mark.parametrize("cells", [1 << 25, 3000, 200], ids=["one-block", "blocks", "tiny"])
-@pytest.mark.parametrize(("cross", "theiler", "norm", "lmin"),
-                         [(False, 0, "max", 2), (False, 3, "euclidean", 2),
-                          (True, 0, "max", 3), (True, 2, "manhattan", 2)],
-                         ids=["auto", "auto-theiler3-l2", "cross-lmin3", "cross-theiler2-l1"])
-def test_blockwise_rqa_equals_dense_brute_force(monkeypatch, cells, cross, theiler, norm, lmin):
+@pytest.mark.parametrize(("cross", "theiler", "norm", "lmin", "vmin"),
+                         [(False, 0, "max", 2, 2), (False, 3, "euclidean", 2, 3),
+                          (True, 0, "max", 3, 2), (True, 2, "manhattan", 2, 5),
+                          (True, 0, "max", 2, 34)],
+                         ids=["auto", "auto-theiler3-l2-vmin3", "cross-lmin3",
+                              "cross-theiler2-l1-vmin5", "cross-vmin34"])
+def test_blockwise_rqa_equals_dense_brute_force(monkeypatch, cells, cross, theiler, norm, lmin,
+                                                vmin):
     """Internal check: the blockwise line counting (any block size, lines crossing block
     boundaries) equals the dense definition. Not an outside reference (see tests/reference)."""
     monkeypatch.setattr(recurrence_module, "_CELL_BUDGET", cells)
     rng = np.random.default_rng(11)
     x = _trajectory(rng, 150)
     y = _trajectory(rng, 131) if cross else None
-    radius = 0.45
-    got = rqa(x, y, radius=radius, lmin=lmin, vmin=2, theiler=theiler, norm=norm)
-    want = dense_rqa(x, y, radius, lmin, 2, theiler, norm)
+    radius = 0.45 if vmin < 30 else 1.2
+    got = rqa(x, y, radius=radius, lmin=lmin, vmin=vmin, theiler=theiler, norm=norm)
+    want = dense_rqa(x, y, radius, lmin, vmin, theiler, norm)
     assert got["Lmax"] == want["Lmax"]
     for key in ("RR", "DET", "L", "ENTR", "LAM", "TT"):
         assert got[key] == pytest.approx(want[key], rel=1e-12), key
