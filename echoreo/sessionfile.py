@@ -30,7 +30,17 @@ if that process is still alive on this host, the session is live and is left
 ``running``. If the file cannot be written (read-only medium or permissions),
 the file is left unchanged and the reader reports ``interrupted`` anyway.
 Everything committed before the crash is intact: SQLite's WAL recovery runs
-on the first open and replays every committed transaction.
+on the first open and replays every committed transaction; the marking then
+folds the log into the file (:func:`make_self_contained`).
+
+Journal mode
+------------
+A session is recorded in WAL mode. When the recorder closes cleanly, or the
+reader marks a crashed file, the log is checkpointed and the file switched to
+SQLite's rollback-journal mode, so the ``.sqlite`` file alone holds the session
+(copy it without a ``-wal`` companion; open it on read-only media). Files
+still in WAL mode (a live session, or a crash found on a read-only medium)
+read the same.
 """
 
 from __future__ import annotations
@@ -59,6 +69,7 @@ __all__ = [
     "SessionFile",
     "check_name",
     "create_schema",
+    "make_self_contained",
     "process_identity",
     "quote_ident",
     "stream_table",
@@ -257,6 +268,29 @@ def _writer_alive(writer: Any) -> bool:
     return ticks is None or want is None or ticks == want
 
 
+def make_self_contained(conn: sqlite3.Connection) -> bool:
+    """Fold the write-ahead log into the database file and leave WAL mode.
+
+    ``PRAGMA wal_checkpoint(TRUNCATE)`` copies every committed transaction into
+    the main file, then ``PRAGMA journal_mode=DELETE`` clears the file's WAL
+    flag, so the ``.sqlite`` file alone holds the session: it can be copied
+    without its ``-wal`` companion and opened on read-only media by any SQLite
+    client. Needs the only connection to the file; when another one is open
+    (a live reader) the file simply stays in WAL mode, which is just as valid.
+
+    Returns
+    -------
+    bool
+        True when the file left WAL mode.
+    """
+    try:
+        conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+        mode = conn.execute("PRAGMA journal_mode=DELETE").fetchone()[0]
+    except sqlite3.OperationalError:
+        return False
+    return str(mode).lower() == "delete"
+
+
 def _utc_now() -> str:
     return datetime.now(UTC).isoformat(timespec="microseconds")
 
@@ -385,6 +419,8 @@ class SessionFile:
                                  ("interrupted_marked_utc", to_json(_utc_now())))
             except sqlite3.OperationalError:
                 pass  # read-only: reported as interrupted without changing the file
+            else:
+                make_self_contained(conn)
         except sqlite3.DatabaseError as exc:
             raise self._db_error(exc) from exc
         finally:

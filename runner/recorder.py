@@ -8,10 +8,12 @@ the one of :mod:`echoreo.sessionfile` (DEVELOPERS.md, "Session file").
 
 Durability
 ----------
-* ``journal_mode = WAL``: readers (``echoreo sessions``, a live scorer) never
-  block the writer, and a crash leaves the database consistent: on the next
-  open SQLite replays every committed transaction from the ``-wal`` file and
-  ignores a torn, uncommitted tail.
+* ``journal_mode = WAL`` while recording: readers (``echoreo sessions``, a
+  live scorer) never block the writer, and a crash leaves the database
+  consistent: on the next open SQLite replays every committed transaction
+  from the ``-wal`` file and ignores a torn, uncommitted tail. A clean
+  :meth:`close` checkpoints the log and leaves WAL mode, so the finished file
+  is self-contained (:func:`echoreo.sessionfile.make_self_contained`).
 * ``synchronous = FULL`` (the default here): every commit fsyncs the WAL, so
   a committed batch survives a process kill *and* an operating-system crash
   or power loss. Commits happen at most every ``commit_interval_s`` (50 ms by
@@ -59,6 +61,7 @@ from echoreo.sessionfile import (
     FORMAT,
     check_name,
     create_schema,
+    make_self_contained,
     process_identity,
     stream_table,
     stream_table_ddl,
@@ -511,7 +514,7 @@ class Recorder:
         conn.executemany("INSERT OR REPLACE INTO meta (key, value) VALUES (?, ?)",
                          [("state", to_json(state)), ("ended_utc", to_json(_utc_now()))])
         conn.execute("COMMIT")
-        conn.execute("PRAGMA wal_checkpoint(TRUNCATE)")
+        make_self_contained(conn)  # one self-contained file (see echoreo.sessionfile)
         conn.close()
 
 

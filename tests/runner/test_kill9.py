@@ -79,6 +79,7 @@ def test_kill9_mid_session_keeps_committed_samples(tmp_path):
         assert sf.state == "interrupted" and sf.marked_interrupted
         df = sf.read_stream("synthetic")
         events = sf.events("cue")
+    assert not path.with_name(path.name + "-wal").exists()  # log folded into the file
     with SessionFile(path) as again:  # the mark was written to the file
         assert again.state == "interrupted" and not again.marked_interrupted
 

@@ -42,8 +42,6 @@ def test_round_trip(tmp_path):
         assert live.state == "running" and len(live.read_stream("right_wrist_imu")) == 1000
     rec.close()
     assert rec.stats.rows_written == 1000 and rec.stats.pending_rows == 0
-    assert not (tmp_path / "P07.sqlite-wal").exists() or \
-        (tmp_path / "P07.sqlite-wal").stat().st_size == 0
     with SessionFile(f) as sf:
         assert sf.state == "complete" and sf.meta["ended_utc"] and sf.meta["utc_start"]
         assert sf.meta["format"] == "echoreo-session/1" and sf.meta["robot_name"] == "torso-e1"
@@ -61,8 +59,10 @@ def test_round_trip(tmp_path):
         assert ev["kind"].tolist() == ["cue", "gap"]
         assert sf.stream_health().loc[0, "gap_events"] == 1
         assert sf.integrity_check() == "ok"
-    conn = sqlite3.connect(f)
-    assert conn.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
+    # recorded in WAL mode, then folded into one self-contained file at close
+    assert not (tmp_path / "P07.sqlite-wal").exists()
+    conn = sqlite3.connect(f"file:{f}?mode=ro", uri=True)
+    assert conn.execute("PRAGMA journal_mode").fetchone()[0] == "delete"
     conn.close()
 
 
