@@ -213,18 +213,21 @@ class Choreography:
         span_of = np.zeros(n_samples, dtype=np.int64)
         steps = {s.index: s for s in self.steps}
         posture = self.start_posture
+        # sample i belongs to the last span that starts at or before t[i]
         starts = np.array([r[4] for r in rows])
-        idx = np.clip(np.searchsorted(starts, t, side="right") - 1, 0, len(rows) - 1)
+        first = np.searchsorted(t, starts, side="left")
+        first[0] = 0
+        last = np.append(first[1:], n_samples)
         for i, (step_index, name, _rep, kind, a, _b) in enumerate(rows):
-            mask = idx == i
-            span_of[mask] = i
+            window = slice(first[i], last[i])
+            span_of[window] = i
             if kind == "move":
                 move = self.moves[name]
-                local = (t[mask] - a) * steps[step_index].tempo
-                q[mask] = move.evaluate(local)
+                local = (t[window] - a) * steps[step_index].tempo
+                q[window] = move.evaluate(local)
                 posture = move.knots[-1]
             else:
-                q[mask] = posture
+                q[window] = posture
         spans = pd.DataFrame(rows, columns=list(SPAN_COLUMNS))
         spans = spans.astype({"step": "int64", "repetition": "int64", "t_start": "float64",
                               "t_end": "float64"})
