@@ -48,6 +48,7 @@ from dataclasses import dataclass
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 from scipy.interpolate import CubicSpline
+from scipy.linalg import solve_banded
 
 from echoreo.sim import _kinematics as _k
 from echoreo.sim.robot import Robot
@@ -175,13 +176,15 @@ def _check_t(t: ArrayLike, n: int) -> NDArray[np.float64]:
 def joint_derivatives(t: ArrayLike, q: ArrayLike) -> tuple[NDArray, NDArray]:
     """Joint rates from samples: derivatives of the interpolating cubic spline.
 
-    ``q`` is interpolated by a not-a-knot cubic spline per column ([1]_);
-    with the spline written on interval i as
-    ``s(x) = c_0 (x - t_i)^3 + c_1 (x - t_i)^2 + c_2 (x - t_i) + c_3``,
+    ``q`` is interpolated by a not-a-knot cubic spline per column ([1]_; the
+    spline of ``scipy.interpolate.CubicSpline``). The knot slopes ``s_i``
+    solve the tridiagonal C2-continuity system (written out in the code); with
+    ``dx_i = t_{i+1} - t_i`` and ``m_i = (q_{i+1} - q_i) / dx_i``,
 
-    .. math:: \\dot q(t_i) = c_{2,i}, \\qquad \\ddot q(t_i) = 2 c_{1,i}
+    .. math:: \\dot q(t_i) = s_i, \\qquad
+              \\ddot q(t_i) = \\frac{2 (3 m_i - 2 s_i - s_{i+1})}{dx_i}
 
-    (the last sample uses the last interval's polynomial). Errors for a
+    (the last sample uses the last interval at its right end). Errors for a
     smooth ``q``: O(h^3) and O(h^2) ([2]_). With two samples the rate is the
     difference quotient and the acceleration zero; with one, both are zero.
 
@@ -205,14 +208,43 @@ def joint_derivatives(t: ArrayLike, q: ArrayLike) -> tuple[NDArray, NDArray]:
     if n == 2:
         rate = (q[1] - q[0]) / (t[1] - t[0])
         return np.repeat(rate[None], 2, axis=0), np.zeros_like(q)
-    c = CubicSpline(t, q, axis=0, bc_type="not-a-knot").c  # (4, n-1, n_joints)
-    qd = np.empty_like(q)
+    if n == 3:  # not-a-knot through three points is the interpolating parabola
+        c = CubicSpline(t, q, axis=0, bc_type="not-a-knot").c  # (4, n-1, n_joints)
+        qd = np.empty_like(q)
+        qdd = np.empty_like(q)
+        qd[:-1] = c[2]
+        qdd[:-1] = 2.0 * c[1]
+        h = t[-1] - t[-2]
+        qd[-1] = 3.0 * c[0, -1] * h * h + 2.0 * c[1, -1] * h + c[2, -1]
+        qdd[-1] = 6.0 * c[0, -1] * h + 2.0 * c[1, -1]
+        return qd, qdd
+    # Knot slopes s from the tridiagonal system of C2 continuity with not-a-knot
+    # ends (de Boor 1978, ch. IV), solved for all joints at once:
+    #   dx_i s_{i-1} + 2 (dx_{i-1} + dx_i) s_i + dx_{i-1} s_{i+1}
+    #       = 3 (dx_i m_{i-1} + dx_{i-1} m_i),   m_i = (q_{i+1} - q_i) / dx_i
+    dx = np.diff(t)
+    m = np.diff(q, axis=0) / dx[:, None]
+    ab = np.zeros((3, n))
+    rhs = np.empty_like(q)
+    ab[1, 1:-1] = 2.0 * (dx[:-1] + dx[1:])
+    ab[0, 2:] = dx[:-1]
+    ab[2, :-2] = dx[1:]
+    rhs[1:-1] = 3.0 * (dx[1:, None] * m[:-1] + dx[:-1, None] * m[1:])
+    d = t[2] - t[0]
+    ab[1, 0] = dx[1]
+    ab[0, 1] = d
+    rhs[0] = ((dx[0] + 2.0 * d) * dx[1] * m[0] + dx[0] ** 2 * m[1]) / d
+    d = t[-1] - t[-3]
+    ab[1, -1] = dx[-2]
+    ab[2, -2] = d
+    rhs[-1] = (dx[-1] ** 2 * m[-2] + (2.0 * d + dx[-1]) * dx[-2] * m[-1]) / d
+    qd = solve_banded((1, 1), ab, rhs, overwrite_ab=True, overwrite_b=True,
+                      check_finite=False)
+    # second derivative of each interval's Hermite cubic at its left end, and of
+    # the last interval at its right end
     qdd = np.empty_like(q)
-    qd[:-1] = c[2]
-    qdd[:-1] = 2.0 * c[1]
-    h = t[-1] - t[-2]
-    qd[-1] = 3.0 * c[0, -1] * h * h + 2.0 * c[1, -1] * h + c[2, -1]
-    qdd[-1] = 6.0 * c[0, -1] * h + 2.0 * c[1, -1]
+    qdd[:-1] = 2.0 * (3.0 * m - 2.0 * qd[:-1] - qd[1:]) / dx[:, None]
+    qdd[-1] = (2.0 * qd[-2] + 4.0 * qd[-1] - 6.0 * m[-1]) / dx[-1]
     return qd, qdd
 
 

@@ -156,7 +156,7 @@ def test_imu_matches_finite_differences():
     np.testing.assert_allclose(gyro[1:-1][sl], ref_gyro[sl], atol=1e-3 * np.max(np.abs(gyro)))
 
 
-@pytest.mark.parametrize("n", [200, 1000])
+@pytest.mark.parametrize("n", [3, 4, 5, 200, 1000])
 def test_spline_derivatives_match_scipy(n):
     """Our per-knot derivatives equal scipy's CubicSpline(...).derivative() evaluation."""
     from scipy.interpolate import CubicSpline
