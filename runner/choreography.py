@@ -311,6 +311,7 @@ class Choreography:
                         f"{100 * worst[j]:.0f} % of the {kind} limit of {names[j]}",
                         "check the robot's limits; the ramp is meant to use a quarter of them"))
 
+        rates: dict[tuple[int, int], dict[str, tuple[float, float, int]]] = {}
         sample_t = {"below": timeline.t, "above": timeline.t,
                     "velocity": timeline.t[:-1], "acceleration": timeline.t}
         sample_span = {"below": span_of, "above": span_of, "velocity": span_of[:-1],
@@ -330,67 +331,95 @@ class Choreography:
                 if kind in ("below", "above") and joint in skip_position:
                     continue
                 rows = np.flatnonzero(bad[:, j])
-                # one problem per step for this joint and quantity, at its worst sample
                 span_steps = spans["step"].to_numpy()[sample_span[kind][rows]]
                 for step_index in np.unique(span_steps):
                     in_step = rows[span_steps == step_index]
-                    i = int(in_step[np.argmax(values[in_step, j])])
-                    problems.append(self._limit_problem(
-                        kind, j, float(values[i, j]), float(sample_t[kind][i]),
-                        int(sample_span[kind][i]), spans, steps, rate, timeline))
+                    vals = values[in_step, j]
+                    # the first sample within round-off of the worst one, so the report
+                    # names the first repetition where the peak occurs
+                    i = int(in_step[np.flatnonzero(vals >= vals.max() * (1 - 1e-6))[0]])
+                    hit = (float(values[i, j]), float(sample_t[kind][i]),
+                           int(sample_span[kind][i]))
+                    if kind in ("below", "above"):
+                        problems.append(self._position_problem(kind, j, hit, spans, steps))
+                    else:
+                        rates.setdefault((int(step_index), int(j)), {})[kind] = hit
+        for (_, j), hits in rates.items():
+            problems.append(self._rate_problem(j, hits, spans, steps))
         problems.sort(key=lambda p: (p.line or 0, p.column or 0))
         return problems
 
-    def _limit_problem(self, kind: str, j: int, value: float, t: float, span_index: int,
-                       spans: pd.DataFrame, steps: dict[int, Step], rate: float,
-                       timeline: Timeline) -> Problem:
-        robot = self.robot
-        joint = robot.joint_names[j]
+    def _context(self, t: float, span_index: int, spans: pd.DataFrame,
+                 steps: dict[int, Step]) -> tuple[str, Loc, Move | None, Step]:
+        """Where a sample at ``t`` was written: text, location, move and step."""
         span = spans.iloc[span_index]
         step = steps[int(span["step"])]
         step_loc = self._locs.steps[step.index - 1]
-        where = f"at t = {t:.2f} s in step {step.index} (line {step_loc.line})"
-        loc = step_loc
-        move = None
-        if span["kind"] == "move":
-            move = self.moves[step.name]
-            where = (f"at t = {t:.2f} s in step {step.index} (line {step_loc.line}), "
-                     f"move {move.name!r}, repetition {int(span['repetition'])}")
-            local = (t - float(span["t_start"])) * step.tempo
-            seg = int(np.clip(np.searchsorted(move.times, local, side="right"), 1,
-                              move.times.size - 1))
-            if move.mirror_of is not None:
-                loc = self._locs.mirror[move.name]
+        if span["kind"] != "move":
+            return f"in step {step.index} (line {step_loc.line})", step_loc, None, step
+        move = self.moves[step.name]
+        where = (f"in step {step.index} (line {step_loc.line}), move {move.name!r}, "
+                 f"repetition {int(span['repetition'])}")
+        local = (t - float(span["t_start"])) * step.tempo
+        seg = int(np.clip(np.searchsorted(move.times, local, side="right"), 1,
+                          move.times.size - 1))
+        if move.mirror_of is not None:
+            return where, self._locs.mirror[move.name], move, step
+        return where, self._locs.keyframes[move.name][seg], move, step
+
+    def _position_problem(self, kind: str, j: int, hit: tuple[float, float, int],
+                          spans: pd.DataFrame, steps: dict[int, Step]) -> Problem:
+        robot = self.robot
+        value, t, span_index = hit
+        where, loc, move, _ = self._context(t, span_index, spans, steps)
+        limit = float(robot.lower[j] if kind == "below" else robot.upper[j])
+        reached = limit - value if kind == "below" else limit + value
+        side = "lower" if kind == "below" else "upper"
+        hint = "move the keyframes of this move away from the limit"
+        if move is not None and move.interpolation == "cubic":
+            hint = ("a cubic spline overshoots between keyframes: use interpolation: "
+                    "minimum-jerk, add a keyframe, or move the keyframes away from the limit")
+        return loc.problem(
+            f"{robot.joint_names[j]} reaches {math.degrees(reached):.1f} deg ({reached:.3f} "
+            f"rad) at t = {t:.2f} s {where}, beyond its {side} limit "
+            f"{math.degrees(limit):.1f} deg", hint)
+
+    def _rate_problem(self, j: int, hits: dict[str, tuple[float, float, int]],
+                      spans: pd.DataFrame, steps: dict[int, Step]) -> Problem:
+        """One problem for a joint's speed and/or acceleration excess in one step.
+
+        The fix scales time: stretching a move by a factor :math:`s` divides its
+        speeds by :math:`s` and the accelerations of smooth interpolants by
+        :math:`s^2`; the velocity steps of linear moves, seen as acceleration at
+        the command rate, scale with :math:`1/s`. The suggested factor is the
+        largest one needed, plus a 2 % margin for sampling.
+        """
+        robot = self.robot
+        joint = robot.joint_names[j]
+        parts: list[str] = []
+        stretches: dict[str, float] = {}
+        for kind, (value, t, span_index) in hits.items():
+            _, _, move, _ = self._context(t, span_index, spans, steps)
+            if kind == "velocity":
+                limit = float(robot.max_velocity[j])
+                parts.append(f"speed reaches {value * limit:.2f} rad/s "
+                             f"({math.degrees(value * limit):.0f} deg/s, {100 * value:.0f} % "
+                             f"of its limit {limit:.2f} rad/s) at t = {t:.2f} s")
+                stretches[kind] = value
             else:
-                loc = self._locs.keyframes[move.name][seg]
-        if kind in ("below", "above"):
-            limit = robot.lower[j] if kind == "below" else robot.upper[j]
-            reached = limit - value if kind == "below" else limit + value
-            side = "lower" if kind == "below" else "upper"
-            hint = "move the keyframes of this move away from the limit"
-            if move is not None and move.interpolation == "cubic":
-                hint = ("a cubic spline overshoots between keyframes: use interpolation: "
-                        "minimum-jerk, add a keyframe, or move the keyframes away from the limit")
-            return loc.problem(
-                f"{joint} reaches {math.degrees(reached):.1f} deg ({reached:.3f} rad) {where}, "
-                f"beyond its {side} limit {math.degrees(limit):.1f} deg", hint)
-        if kind == "velocity":
-            limit = float(robot.max_velocity[j])
-            text = (f"{joint} speed reaches {value * limit:.2f} rad/s "
-                    f"({math.degrees(value * limit):.0f} deg/s) {where}, "
-                    f"{100 * value:.0f} % of its limit {limit:.2f} rad/s")
-            stretch = value
-        else:
-            limit = float(robot.max_acceleration[j])
-            text = (f"{joint} acceleration reaches {value * limit:.1f} rad/s² {where}, "
-                    f"{100 * value:.0f} % of its limit {limit:.1f} rad/s²")
-            # smooth interpolants: acceleration ~ 1/T²; velocity steps of linear moves: ~ 1/T
-            linear = move is not None and move.interpolation == "linear"
-            stretch = value if linear else math.sqrt(value)
-        stretch *= 1.02  # margin: sampled peaks do not scale exactly with duration
+                limit = float(robot.max_acceleration[j])
+                parts.append(f"acceleration reaches {value * limit:.1f} rad/s² "
+                             f"({100 * value:.0f} % of its limit {limit:.1f} rad/s²) at "
+                             f"t = {t:.2f} s")
+                linear = move is not None and move.interpolation == "linear"
+                stretches[kind] = value if linear else math.sqrt(value)
+        worst = max(stretches, key=stretches.get)
+        value, t, span_index = hits[worst]
+        where, loc, move, step = self._context(t, span_index, spans, steps)
+        text = f"{joint} {' and '.join(parts)} {where}"
         if move is None:
-            hint = "lengthen or slow down the step before this one"
-            return loc.problem(text, hint)
+            return loc.problem(text, "lengthen or slow down the step before this one")
+        stretch = stretches[worst] * 1.02  # margin: sampled peaks do not scale exactly
         new_duration = math.ceil(move.duration * stretch * 100) / 100
         written_tempo = step.tempo / self.tempo  # the step's own factor, as in the file
         new_tempo = _round_down(written_tempo / stretch)
@@ -398,7 +427,7 @@ class Choreography:
                 f"keyframe times; the last is at {move.duration:.2f} s), set this step's tempo "
                 f"to {new_tempo:g} or less (now {written_tempo:g}), or reduce the amplitude "
                 f"of {joint}")
-        if kind == "acceleration" and move.interpolation == "linear":
+        if "acceleration" in hits and move.interpolation == "linear":
             hint += ("; linear interpolation changes velocity abruptly at every keyframe, "
                      "interpolation: minimum-jerk starts and ends every segment at rest")
         if move.mirror_of is not None:
