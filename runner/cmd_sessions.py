@@ -75,13 +75,15 @@ def _plan_text(meta: dict) -> str:
     if isinstance(chors, dict):
         names = list(chors)
     plan_name = None
+    if isinstance(meta.get("plan_path"), str) and meta["plan_path"]:
+        plan_name = Path(meta["plan_path"]).stem
     plan = meta.get("plan")
     if isinstance(plan, str) and plan.strip():
         try:
             doc = yaml.safe_load(plan)
         except yaml.YAMLError:
             doc = None
-        if isinstance(doc, dict):
+        if isinstance(doc, dict) and plan_name is None:
             plan_name = doc.get("name") or doc.get("plan")
     if meta.get("imported_from"):
         plan_name = plan_name or "import"

@@ -33,7 +33,8 @@ def _cli(*args, env_extra=None):
 def test_lists_complete_interrupted_and_unreadable(tmp_path):
     """Each file is one row with its state; stream health counts samples and gaps."""
     rec = Recorder(tmp_path / "P01.sqlite", {"study": "pilot", "participant": "P01",
-                                             "choreographies": {"greeting": "name: greeting"}})
+                                             "choreographies": {"greeting": "name: greeting"},
+                                             "plan_path": "plans/pilot-a.yaml"})
     rec.add_stream({"name": "right_wrist_imu", "kind": "imu", "channels": ["acc_x"],
                     "units": ["m/s^2"], "rate_hz": 100.0})
     # 100 Hz for 2 s with one 0.5 s hole: one gap at the default threshold of 3 periods
@@ -51,7 +52,7 @@ def test_lists_complete_interrupted_and_unreadable(tmp_path):
     text = out.stdout
     assert "P01.sqlite" in text and "P02.sqlite" in text and "notes.sqlite" in text
     assert "complete" in text and "interrupted" in text and "unreadable" in text
-    assert "greeting" in text
+    assert "pilot-a: greeting" in text
     assert "right_wrist_imu: 150 samples" in text and "1 gap" in text
     assert "head_pose: 90 samples, 30.0/30 Hz, no gaps" in text
     assert "1 complete, 1 interrupted, 1 unreadable" in text
