@@ -72,6 +72,10 @@ class ScoringParams:
         Longest interval between source samples bridged by interpolation (0.2 s).
     lag_min_s, lag_max_s : float, s
         Window of follower reaction lags searched (0 to 2 s).
+    lag_min_correlation : float
+        A pair's own lag estimate is used only when the correlation peak
+        reaches this (0.3); otherwise the pair takes the median lag of the
+        other pairs in the step, or of the session (METHODS.md 2.5).
     embedding : tuple of EmbeddingChoice
         Delay and dimension per stream kind; empty means "choose them from the
         session(s) being scored" (:func:`choose_embedding`).
@@ -125,6 +129,7 @@ class ScoringParams:
     max_gap_s: float = 0.2
     lag_min_s: float = 0.0
     lag_max_s: float = 2.0
+    lag_min_correlation: float = 0.3
     embedding: tuple[EmbeddingChoice, ...] = ()
     dim_method: str = "fnn"
     dim_threshold: float = 0.10

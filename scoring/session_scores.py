@@ -428,13 +428,15 @@ class _Prepared:
     problems: list[Problem]
 
 
-def _where(data: SessionData, stream: str | None = None, move: str | None = None,
-           step: int | None = None, repetition: int | None = None) -> str:
+def _where(data: SessionData, stream: str | None = None,
+           move: tuple[str, str] | None = None, step: int | None = None,
+           repetition: int | None = None) -> str:
     parts = [f"session {data.session!r}"]
     if stream is not None:
         parts.append(f"stream {stream!r}")
     if move is not None:
-        parts.append(f"move {move!r}")
+        chor, name = move
+        parts.append(f"choreography {chor!r}, move {name!r}" if chor else f"move {name!r}")
     if step is not None:
         parts.append(f"step {step}")
     if repetition is not None:
@@ -447,6 +449,9 @@ def _prepare(data: SessionData, params: ScoringParams) -> _Prepared:
     file = data.path
     spans = data.spans
     moves = spans[spans["kind"] == "move"].sort_values("t_start").reset_index(drop=True)
+    if "choreography" not in moves.columns:
+        moves["choreography"] = ""
+    moves["choreography"] = moves["choreography"].fillna("").astype(str)
     if moves.empty:
         raise ScoringInputError(Problem(
             f"{_where(data)}: the spans table holds no repetitions of kind 'move'", file,
@@ -543,7 +548,7 @@ def _prepare(data: SessionData, params: ScoringParams) -> _Prepared:
     for pd_ in out:
         if pd_.ref is None:
             continue
-        for move, grp in moves.groupby("move", sort=False):
+        for move, grp in moves.groupby(["choreography", "move"], sort=False):
             idx = np.concatenate([np.arange(_grid_index(a, rate), _grid_index(b, rate)) - k0
                                   for a, b in zip(grp["t_start"], grp["t_end"], strict=True)])
             idx = idx[(idx >= 0) & (idx < n)]
@@ -559,9 +564,11 @@ def _rms(x: np.ndarray) -> float:
     return float(np.sqrt(np.mean(np.sum(d * d, axis=1))))
 
 
-def _steps(moves: pd.DataFrame) -> list[tuple[int, str, pd.DataFrame]]:
-    return [(int(step), str(grp["move"].iloc[0]), grp)
-            for step, grp in moves.groupby("step", sort=False)]
+def _steps(moves: pd.DataFrame) -> list[tuple[int, tuple[str, str], pd.DataFrame]]:
+    """Steps in time order as ``(step, (choreography, move), spans)``; step numbers restart
+    in every choreography of a session, so a step is keyed by both."""
+    return [(int(key[1]), (str(grp["choreography"].iloc[0]), str(grp["move"].iloc[0])), grp)
+            for key, grp in moves.groupby(["choreography", "step"], sort=False)]
 
 
 def _leader_segments(prep: _Prepared) -> dict[str, list[np.ndarray]]:
@@ -644,6 +651,42 @@ def _empty_detail() -> dict:
             "motion_ratio": _NAN}
 
 
+def _step_lags(prep: _Prepared, grp: pd.DataFrame, move: tuple[str, str], lag_lo: int,
+               lag_hi: int) -> dict[str, tuple[int, float, bool, bool]]:
+    """Reliable lags of one step, per pair: ``stream -> (lag, rho, at_edge, True)``.
+
+    A pair's own estimate counts only when its leader moves, its follower moves
+    (RMS at least ``skipped_fraction`` of the leader's) and the correlation peak
+    reaches ``params.lag_min_correlation``; a constant or unrelated follower
+    signal has a meaningless peak.
+    """
+    params, cfg, rate = prep.params, prep.params.grade, prep.params.rate_hz
+    a_step = _grid_index(float(grp["t_start"].min()), rate) - prep.k0
+    b_step = _grid_index(float(grp["t_end"].max()), rate) - prep.k0
+    lags: dict[str, tuple[int, float, bool, bool]] = {}
+    if a_step < 0 or b_step - a_step < 3:
+        return lags
+    for pd_ in prep.pairs:
+        if pd_.ref is None or pd_.fol is None:
+            continue
+        r = pd_.ref[a_step:b_step]
+        if not np.isfinite(r).all():
+            continue
+        rms_l = _rms(r)
+        if rms_l < cfg.leader_still_limit(pd_.pair["kind"]):
+            continue
+        hi = min(b_step + lag_hi, prep.n)
+        f = pd_.fol[a_step:hi]
+        ok = np.isfinite(f).all(axis=1)
+        if not ok.any() or _rms(f[ok]) < cfg.skipped_fraction * rms_l:
+            continue
+        u = pd_.axes.get(move, np.eye(3)[0])
+        est = estimate_lag(pd_.ref[a_step:hi] @ u, f @ u, 0, b_step - a_step, lag_lo, lag_hi)
+        if est.lag >= 0 and est.correlation >= params.lag_min_correlation:
+            lags[pd_.pair["stream"]] = (est.lag, est.correlation, est.at_edge, True)
+    return lags
+
+
 def score_data(data: SessionData, params: ScoringParams | None = None, *,
                details: bool = False) -> SessionScores:
     """Score one session held in memory.
@@ -690,31 +733,13 @@ def score_data(data: SessionData, params: ScoringParams | None = None, *,
     records: list[dict] = []
     det: list[dict] = []
     extra: list[dict] = []  # per record: private values for the second pass
-    for step, move, grp in _steps(prep.moves):
-        a_step = _grid_index(float(grp["t_start"].min()), rate) - prep.k0
-        b_step = _grid_index(float(grp["t_end"].max()), rate) - prep.k0
-        # lags of this step, per pair
-        lags: dict[str, tuple[int, float, bool, bool]] = {}
-        for pd_ in prep.pairs:
-            name = pd_.pair["stream"]
-            if pd_.ref is None or pd_.fol is None:
-                continue
-            u = pd_.axes.get(move, np.eye(3)[0])
-            r = pd_.ref[a_step:b_step]
-            moving = bool(np.isfinite(r).all() and _rms(r) >= cfg.leader_still_limit(
-                pd_.pair["kind"]))
-            if not moving:
-                continue
-            hi = min(b_step + lag_hi, prep.n)
-            x = pd_.ref[a_step:hi] @ u
-            y = pd_.fol[a_step:hi] @ u
-            est = estimate_lag(x, y, 0, b_step - a_step, lag_lo, lag_hi)
-            if est.lag >= 0:
-                lags[name] = (est.lag, est.correlation, est.at_edge, True)
-        if lags:
-            borrowed = int(np.median([v[0] for v in lags.values()]))
-        else:
-            borrowed = lag_lo
+    steps = _steps(prep.moves)
+    step_lags = [_step_lags(prep, grp, move, lag_lo, lag_hi) for _, move, grp in steps]
+    reliable = [v[0] for lags in step_lags for v in lags.values()]
+    session_lag = int(np.median(reliable)) if reliable else lag_lo
+    for (step, move, grp), lags in zip(steps, step_lags, strict=True):
+        # a pair without a reliable lag of its own takes the step's median, else the session's
+        borrowed = int(np.median([v[0] for v in lags.values()])) if lags else session_lag
         for pd_ in prep.pairs:
             p = pd_.pair
             name, kind = p["stream"], p["kind"]
@@ -811,7 +836,7 @@ def _second_pass(records: list[dict], extra: list[dict], det: list[dict], cfg) -
     # variability: CV of the follower's median distance across repetitions of a move
     groups: dict[tuple[str, str], list[int]] = {}
     for i, rec in enumerate(records):
-        groups.setdefault((rec["stream"], rec["move"]), []).append(i)
+        groups.setdefault((rec["stream"], rec["choreography"], rec["move"]), []).append(i)
     for idx in groups.values():
         vals = np.array([extra[i]["fmed"] for i in idx if extra[i]["scored"]])
         cv = _NAN
@@ -853,10 +878,11 @@ def _second_pass(records: list[dict], extra: list[dict], det: list[dict], cfg) -
             flags.append("lag")
         rec["flags"] = flags
     # asymmetry: the two wrists of one repetition, each relative to its leader wrist
-    by_rep: dict[tuple[int, int], dict[str, int]] = {}
+    by_rep: dict[tuple[str, int, int], dict[str, int]] = {}
     for i, rec in enumerate(records):
         if rec["kind"] == "imu" and rec["site"] in ("left_wrist", "right_wrist"):
-            by_rep.setdefault((rec["step"], rec["repetition"]), {})[rec["site"]] = i
+            key = (rec["choreography"], rec["step"], rec["repetition"])
+            by_rep.setdefault(key, {})[rec["site"]] = i
     for sites in by_rep.values():
         if len(sites) != 2:
             continue
