@@ -83,7 +83,7 @@ def detect_kind(path: str | Path) -> str:
 
 def _pct(value: float) -> str:
     colour = "green" if value < 80 else ("yellow" if value <= 100 else "red")
-    return f"[{colour}]{value:5.1f} %[/]"
+    return f"[{colour}]{value:.1f} %[/]"
 
 
 def _check_choreography(path: str, rate_hz: float, console: Console) -> None:
@@ -96,34 +96,41 @@ def _check_choreography(path: str, rate_hz: float, console: Console) -> None:
     ramp_s = ramp_duration(robot, robot.rest, chor.start_posture)
     ramp_text = f"ramp from the rest pose {ramp_s:.1f} s" if ramp_s > 0 else "starts at rest"
     table = Table(
+        caption=("speed, accel.: peak joint speed and acceleration in % of that joint's limit, "
+                 "on the sampled commands; ×n repetitions, @f effective tempo"),
+        caption_justify="left",
         title=(f"[bold]{escape(chor.name)}[/] on {escape(robot.name)}: "
                f"{chor.duration:.1f} s, {len(chor.steps)} steps, "
                f"{chor.n_repetitions} repetitions (checked at {rate_hz:g} Hz; {ramp_text})"),
         title_justify="left")
-    for column, justify in (("step", "right"), ("kind", "left"), ("move / pose", "left"),
-                            ("reps", "right"), ("tempo", "right"), ("duration", "right"),
-                            ("peak speed", "right"), ("joint", "left"),
-                            ("peak accel.", "right"), ("joint", "left"), ("cue", "left")):
-        table.add_column(column, justify=justify)
+    # numbers never wrap; names wrap when the terminal is narrow
+    for column, justify, width in (("step", "right", 4), ("what", "left", None),
+                                   ("duration", "right", 9), ("speed", "right", 7),
+                                   ("joint", "left", None), ("accel.", "right", 7),
+                                   ("joint", "left", None)):
+        table.add_column(column, justify=justify, min_width=width,
+                         no_wrap=width is not None, overflow="fold")
     for kind in ("velocity", "acceleration"):  # name a joint only for a visible share
         usage.loc[usage[f"{kind}_pct"] < 0.05, f"{kind}_joint"] = ""
-    for step, (_, row) in zip(chor.steps, usage.iterrows(), strict=True):
-        table.add_row(
-            str(row["step"]), row["kind"], escape(row["name"]),
-            str(row["repeat"]) if row["kind"] == "move" else "",
-            f"{row['tempo']:g}" if row["kind"] == "move" else "",
-            f"{row['duration']:.2f} s",
-            _pct(row["velocity_pct"]), row["velocity_joint"],
-            _pct(row["acceleration_pct"]), row["acceleration_joint"],
-            escape(step.cue))
+    for _, row in usage.iterrows():
+        if row["kind"] == "move":
+            what = f"{row['name']} ×{row['repeat']}"
+            if abs(row["tempo"] - 1.0) > 1e-12:
+                what += f" @{row['tempo']:.3g}"
+        elif row["kind"] == "hold":
+            what = f"hold {row['name']}"
+        else:
+            what = "rest"
+        table.add_row(str(row["step"]), escape(what), f"{row['duration']:.2f} s",
+                      _pct(row["velocity_pct"]), row["velocity_joint"],
+                      _pct(row["acceleration_pct"]), row["acceleration_joint"])
     iv = int(usage["velocity_pct"].to_numpy().argmax())
     ia = int(usage["acceleration_pct"].to_numpy().argmax())
     table.add_section()
-    table.add_row("", "[bold]all[/]", "", str(chor.n_repetitions), "",
+    table.add_row("", f"[bold]all[/] ({chor.n_repetitions} repetitions)",
                   f"{chor.duration:.2f} s",
                   _pct(usage["velocity_pct"].iloc[iv]), usage["velocity_joint"].iloc[iv],
-                  _pct(usage["acceleration_pct"].iloc[ia]), usage["acceleration_joint"].iloc[ia],
-                  "")
+                  _pct(usage["acceleration_pct"].iloc[ia]), usage["acceleration_joint"].iloc[ia])
     console.print(f"[green]ok[/] {escape(path)}: choreography")
     console.print(table)
 

@@ -32,7 +32,7 @@ def test_examples_and_robot_pass_with_tables():
     result = echoreo("check", *EXAMPLES, str(DATA_DIR / "robots" / "torso-e1.yaml"))
     assert result.returncode == 0, result.stdout + result.stderr
     out = result.stdout
-    assert out.count("peak speed") == len(EXAMPLES)
+    assert out.count("peak joint speed") == len(EXAMPLES)
     assert "robot torso-e1 with 12 joints" in out
     assert f"{len(EXAMPLES) + 1} of {len(EXAMPLES) + 1} files passed" in out
     assert "Traceback" not in result.stderr
