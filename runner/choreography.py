@@ -17,7 +17,7 @@ import math
 import numbers
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
@@ -27,6 +27,9 @@ from echoreo.runner.interpolate import evaluate
 from echoreo.runner.ramps import ramp
 from echoreo.runner.timeline import LIMIT_RTOL, SPAN_COLUMNS, Timeline, limit_usage
 from echoreo.yamlload import Loc
+
+if TYPE_CHECKING:
+    from echoreo.sim.robot import Robot
 
 __all__ = ["Choreography", "Move", "Step", "load_choreography"]
 
@@ -148,7 +151,7 @@ class Choreography:
         Where the timeline starts; the session ramps there from the robot's pose.
     """
 
-    def __init__(self, *, name: str, description: str, source: str, text: str, robot: Any,
+    def __init__(self, *, name: str, description: str, source: str, text: str, robot: Robot,
                  tempo: float, poses: dict[str, np.ndarray], moves: dict[str, Move],
                  steps: tuple[Step, ...], start_posture: np.ndarray, locs: Locs):
         self.name = name
@@ -490,7 +493,7 @@ def _round_down(x: float, digits: int = 3) -> float:
 
 
 
-def load_choreography(path: str | Path, robot: Any = None) -> Choreography:
+def load_choreography(path: str | Path, robot: Robot | None = None) -> Choreography:
     """Read, validate and limit-check a choreography file.
 
     Parameters

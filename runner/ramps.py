@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+from typing import TYPE_CHECKING
 
 import numpy as np
 
@@ -13,10 +14,13 @@ from echoreo.runner.interpolate import (
     minimum_jerk_profile,
 )
 
+if TYPE_CHECKING:
+    from echoreo.sim.robot import Robot
+
 __all__ = ["ramp", "ramp_duration"]
 
 
-def _check_posture(robot, q: np.ndarray, what: str) -> np.ndarray:
+def _check_posture(robot: Robot, q: np.ndarray, what: str) -> np.ndarray:
     n = len(robot.joint_names)
     q = np.asarray(q, dtype=float)
     if q.shape != (n,):
@@ -37,7 +41,7 @@ def _check_posture(robot, q: np.ndarray, what: str) -> np.ndarray:
     return q
 
 
-def ramp_duration(robot, q_from: np.ndarray, q_to: np.ndarray,
+def ramp_duration(robot: Robot, q_from: np.ndarray, q_to: np.ndarray,
                   speed_fraction: float = 0.25) -> float:
     """Shortest minimum-jerk duration that keeps every joint under a fraction of its limits.
 
@@ -76,7 +80,7 @@ def ramp_duration(robot, q_from: np.ndarray, q_to: np.ndarray,
     return float(max(np.max(t_v, initial=0.0), np.max(t_a, initial=0.0)))
 
 
-def ramp(robot, q_from: np.ndarray, q_to: np.ndarray, rate_hz: float,
+def ramp(robot: Robot, q_from: np.ndarray, q_to: np.ndarray, rate_hz: float,
          speed_fraction: float = 0.25) -> tuple[np.ndarray, np.ndarray]:
     """The slow minimum-jerk ramp from one posture to another.
 
