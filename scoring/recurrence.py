@@ -61,23 +61,6 @@ def _pair_distances(a: np.ndarray, b: np.ndarray, norm: str) -> np.ndarray:
     return out
 
 
-def _within(a: np.ndarray, b_t: np.ndarray, radius: float, norm: str) -> np.ndarray:
-    """Boolean (g, w): row i of ``a`` (g, m) within ``radius`` of column j of ``b_t`` (m, w)."""
-    m = a.shape[1]
-    if norm == "max":
-        mask = np.abs(np.subtract.outer(a[:, 0], b_t[0])) <= radius
-        for k in range(1, m):
-            mask &= np.abs(np.subtract.outer(a[:, k], b_t[k])) <= radius
-        return mask
-    acc = np.zeros((a.shape[0], b_t.shape[1]))
-    for k in range(m):
-        gap = np.subtract.outer(a[:, k], b_t[k])
-        acc += gap * gap if norm == "euclidean" else np.abs(gap)
-    if norm == "euclidean":
-        return acc <= radius * radius
-    return acc <= radius
-
-
 def _inputs(x: object, y: object) -> tuple[np.ndarray, np.ndarray, bool]:
     xs = as_points(x, "x")
     if y is None:
@@ -158,7 +141,12 @@ def recurrence_radius(x: object, y: object = None, *, recurrence_rate: float,
 
 
 class _LineCounter:
-    """Blockwise recurrence points and line-length histograms of one recurrence plot."""
+    """Blockwise recurrence points and line-length histograms of one recurrence plot.
+
+    Work buffers are allocated once and reused for every block: allocating and
+    releasing large temporaries per block makes the kernel map and unmap pages
+    over and over, which costs more than the arithmetic on a busy machine.
+    """
 
     def __init__(self, xs: np.ndarray, ys: np.ndarray, radius: float, theiler: int,
                  auto: bool, norm: str, vmin: int = 2):
@@ -182,6 +170,44 @@ class _LineCounter:
         # Global start row of the diagonal line open at the current block boundary, per
         # diagonal k = j - i + n (0 .. n + m); -1 where no line is open.
         self.open_start = np.full(self.n + self.m_cols + 1, -1, dtype=np.int64)
+        self.words = -(-(self.m_cols + 2) // 64)  # 64-bit words per packed row
+        self.stride = 64 * self.words
+        self.max_rows = max(1, min(self.n, _CELL_BUDGET // self.stride))
+        cells = _GROUP * self.m_cols
+        self._gap = np.empty(cells)
+        self._mask = np.empty(cells, dtype=bool)
+        self._tmp = np.empty(cells, dtype=bool)
+        size = (self.max_rows + 2) * self.words
+        self._w = [np.empty(size, dtype=np.uint64) for _ in range(6)]
+        self._count8 = np.empty(size, dtype=np.uint8)
+        self._dense = [np.empty((self.max_rows + 2) * self.stride, dtype=bool) for _ in range(2)]
+
+    def _within(self, pts: np.ndarray, c0: int, c1: int) -> np.ndarray:
+        """Boolean (g, c1 - c0): point i within the radius of sorted column c0 + j."""
+        g, w = pts.shape[0], c1 - c0
+        gap = self._gap[: g * w].reshape(g, w)
+        mask = self._mask[: g * w].reshape(g, w)
+        tmp = self._tmp[: g * w].reshape(g, w)
+        r = self.radius
+        cols = self.ys_t[:, c0:c1]
+        if self.norm == "max":
+            for k in range(pts.shape[1]):
+                np.subtract.outer(pts[:, k], cols[k], out=gap)
+                np.abs(gap, out=gap)
+                np.less_equal(gap, r, out=mask if k == 0 else tmp)
+                if k:
+                    mask &= tmp
+            return mask
+        acc = np.zeros((g, w))
+        for k in range(pts.shape[1]):
+            np.subtract.outer(pts[:, k], cols[k], out=gap)
+            if self.norm == "euclidean":
+                np.multiply(gap, gap, out=gap)
+            else:
+                np.abs(gap, out=gap)
+            acc += gap
+        np.less_equal(acc, r * r if self.norm == "euclidean" else r, out=mask)
+        return mask
 
     def _fill(self, dense: np.ndarray, lo: int, hi: int, first: int) -> None:
         """Mark the recurrences of rows lo..hi-1 in ``dense`` (row r at ``r - first``,
@@ -196,7 +222,7 @@ class _LineCounter:
             c1 = int(np.searchsorted(self.key_sorted, kv.max() + r, side="right"))
             if c1 <= c0:
                 continue
-            mask = _within(self.xs[grp], self.ys_t[:, c0:c1], r, self.norm)
+            mask = self._within(self.xs[grp], c0, c1)
             dense[(grp - first)[:, None], self.col_slot[None, c0:c1]] = mask
         if self.theiler > 0:
             # Clear the Theiler band |i - j| < w of these rows.
@@ -206,82 +232,110 @@ class _LineCounter:
                 dense[rows[ok] - first, cols[ok] + 1] = False
 
     def run(self) -> None:
-        n, m = self.n, self.m_cols
-        words = -(-(m + 2) // 64)  # 64-bit words per packed row
-        stride = 64 * words
-        rows_per_block = max(1, min(n, _CELL_BUDGET // stride, 64))
+        n = self.n
+        rows_per_block = min(self.max_rows, 64)
         # The dense block of the next rows is filled on a second thread while this one
-        # counts lines (numpy releases the GIL in both).
+        # counts lines (numpy releases the GIL in both); two dense buffers alternate.
         with ThreadPoolExecutor(max_workers=1) as pool:
-            a = 0
+            a, slot = 0, 0
             b = min(n, a + rows_per_block)
-            pending = pool.submit(self._dense_block, a, b, stride)
+            pending = pool.submit(self._dense_block, a, b, slot)
             while a < n:
                 dense = pending.result()
                 points = int(np.count_nonzero(dense))
                 per_row = max(points / (b - a + 2), 1.0)
-                rows_per_block = int(max(1, min(n, _CELL_BUDGET // stride,
-                                                _POINT_BUDGET / per_row)))
+                rows_per_block = int(max(1, min(self.max_rows, _POINT_BUDGET / per_row)))
                 a_next, b_next = b, min(n, b + rows_per_block)
                 if a_next < n:
-                    pending = pool.submit(self._dense_block, a_next, b_next, stride)
-                self._count(dense, a, b, stride, words)
-                a, b = a_next, b_next
+                    pending = pool.submit(self._dense_block, a_next, b_next, 1 - slot)
+                self._count(dense, a, b)
+                a, b, slot = a_next, b_next, 1 - slot
 
-    def _dense_block(self, a: int, b: int, stride: int) -> np.ndarray:
+    def _dense_block(self, a: int, b: int, slot: int) -> np.ndarray:
         """Boolean block of rows a-1 .. b (zero rows outside the plot), padded columns."""
-        dense = np.zeros((b - a + 2, stride), dtype=bool)
+        dense = self._dense[slot][: (b - a + 2) * self.stride].reshape(b - a + 2, self.stride)
+        dense.fill(False)
         self._fill(dense, max(0, a - 1), min(self.n, b + 1), a - 1)
         return dense
 
-    def _count(self, dense: np.ndarray, a: int, b: int, stride: int, words: int) -> None:
-        rows = b - a
+    def _popcount(self, words: np.ndarray) -> int:
+        if hasattr(np, "bitwise_count"):
+            out = self._count8[: words.size]
+            np.bitwise_count(words, out=out)
+            return int(out.sum(dtype=np.int64))
+        return _popcount(words)
+
+    def _count(self, dense: np.ndarray, a: int, b: int) -> None:
+        rows, words, stride = b - a, self.words, self.stride
         packed = np.packbits(dense, axis=None, bitorder="little").view("<u8")
-        own = packed[words : (rows + 1) * words]
-        self.points += _popcount(own)
-        left = _shift_up(packed)    # bit c holds column c - 1
-        right = _shift_down(packed)  # bit c holds column c + 1
-        self._count_vertical(packed, words, rows)
-        diag = own
+        size = packed.size
+        left, right, t1, t2, t3, t4 = (w[:size] for w in self._w)
+        own = slice(words, (rows + 1) * words)
+        self.points += self._popcount(packed[own])
+        _shift_up(packed, 1, left, t1)     # bit c holds column c - 1
+        _shift_down(packed, 1, right, t1)  # bit c holds column c + 1
+        self._count_vertical(packed, own, t1, t2, t3, t4)
+        n_own = rows * words
+        diag = t4[:n_own]
+        np.copyto(diag, packed[own])
         if self.auto and self.theiler == 0:
             # The line of identity is never a diagonal line (Marwan et al. 2007).
-            diag = own.copy()
             col = np.arange(a, b) + 1
             where = np.arange(rows) * words + col // 64
             diag[where] &= ~(np.uint64(1) << (col % 64).astype(np.uint64))
-        d_start = diag & ~left[: rows * words]            # no point up-left of it
-        d_end = diag & ~right[2 * words : (rows + 2) * words]  # none down-right
-        self.diag_hist[1] += _popcount(d_start & d_end)
-        offset = words * 64
-        self._close_diagonals(_bit_positions(d_start & ~d_end) + offset,
-                              _bit_positions(d_end & ~d_start) + offset, a, b, stride)
+        d_start = t1[:n_own]
+        np.invert(left[:n_own], out=d_start)            # no point up-left of it
+        d_start &= diag
+        d_end = t2[:n_own]
+        np.invert(right[2 * words : (rows + 2) * words], out=d_end)  # none down-right
+        d_end &= diag
+        work = t3[:n_own]
+        np.bitwise_and(d_start, d_end, out=work)
+        self.diag_hist[1] += self._popcount(work)
+        np.invert(d_end, out=work)
+        work &= d_start
+        starts = _bit_positions(work) + words * 64
+        np.invert(d_start, out=work)
+        work &= d_end
+        ends = _bit_positions(work) + words * 64
+        self._close_diagonals(starts, ends, a, b, stride)
 
-    def _count_vertical(self, packed: np.ndarray, words: int, rows: int) -> None:
+    def _count_vertical(self, packed: np.ndarray, own: slice, t1: np.ndarray, t2: np.ndarray,
+                        t3: np.ndarray, t4: np.ndarray) -> None:
         """Vertical lines (fixed row i, consecutive columns j) without listing them.
 
         With ``E`` the points whose ``vmin - 1`` left neighbours are all recurrent, the
         lines of length >= vmin are the runs of ``E`` (one start each) and their points are
         ``E`` spread ``vmin - 1`` columns back; both are bit counts.
         """
-        own = packed[words : (rows + 1) * words]
         vmin = self.vmin
         if vmin > 32:
-            v_start = _bit_positions(own & ~_shift_up(packed)[words : (rows + 1) * words])
-            v_end = _bit_positions(own & ~_shift_down(packed)[words : (rows + 1) * words])
-            lengths = v_end - v_start + 1
+            _shift_up(packed, 1, t1, t2)
+            np.invert(t1, out=t1)
+            t1 &= packed
+            _shift_down(packed, 1, t3, t2)
+            np.invert(t3, out=t3)
+            t3 &= packed
+            lengths = _bit_positions(t3[own]) - _bit_positions(t1[own]) + 1
             long = lengths[lengths >= vmin]
             self.vert_long_lines += int(long.size)
             self.vert_long_points += int(long.sum())
             return
-        eroded = packed.copy()
+        eroded = t3
+        np.copyto(eroded, packed)
         for s in range(1, vmin):
-            eroded &= _shift_up(packed, s)
-        starts = eroded & ~_shift_up(eroded)
-        self.vert_long_lines += _popcount(starts[words : (rows + 1) * words])
-        spread = eroded.copy()
+            _shift_up(packed, s, t1, t2)
+            eroded &= t1
+        _shift_up(eroded, 1, t1, t2)
+        np.invert(t1, out=t1)
+        t1 &= eroded
+        self.vert_long_lines += self._popcount(t1[own])
+        spread = t4
+        np.copyto(spread, eroded)
         for s in range(1, vmin):
-            spread |= _shift_down(eroded, s)
-        self.vert_long_points += _popcount(spread[words : (rows + 1) * words])
+            _shift_down(eroded, s, t1, t2)
+            spread |= t1
+        self.vert_long_points += self._popcount(spread[own])
 
     def _close_diagonals(self, starts: np.ndarray, ends: np.ndarray, a: int, b: int,
                          stride: int) -> None:
@@ -321,17 +375,21 @@ def _popcount(words: np.ndarray) -> int:
     return int(np.unpackbits(words.view(np.uint8)).sum(dtype=np.int64))
 
 
-def _shift_up(words: np.ndarray, s: int = 1) -> np.ndarray:
-    """Bit string moved ``s`` (1 to 63) bits towards higher positions (bit c takes c - s)."""
-    out = words << np.uint64(s)
-    out[1:] |= words[:-1] >> np.uint64(64 - s)
+def _shift_up(words: np.ndarray, s: int, out: np.ndarray, tmp: np.ndarray) -> np.ndarray:
+    """Bit string moved ``s`` (1 to 63) bits towards higher positions (bit c takes c - s),
+    written into ``out``; ``tmp`` is scratch of the same length."""
+    np.left_shift(words, np.uint64(s), out=out)
+    np.right_shift(words[:-1], np.uint64(64 - s), out=tmp[1:])
+    out[1:] |= tmp[1:]
     return out
 
 
-def _shift_down(words: np.ndarray, s: int = 1) -> np.ndarray:
-    """Bit string moved ``s`` (1 to 63) bits towards lower positions (bit c takes c + s)."""
-    out = words >> np.uint64(s)
-    out[:-1] |= words[1:] << np.uint64(64 - s)
+def _shift_down(words: np.ndarray, s: int, out: np.ndarray, tmp: np.ndarray) -> np.ndarray:
+    """Bit string moved ``s`` (1 to 63) bits towards lower positions (bit c takes c + s),
+    written into ``out``; ``tmp`` is scratch of the same length."""
+    np.right_shift(words, np.uint64(s), out=out)
+    np.left_shift(words[1:], np.uint64(64 - s), out=tmp[:-1])
+    out[:-1] |= tmp[:-1]
     return out
 
 
