@@ -44,6 +44,7 @@ _EXPORTS: dict[str, str] = {
     "PlainLog": "liveview",
     "SessionStatus": "liveview",
     "make_view": "liveview",
+    "score_repetition": "livegrades",
 }
 
 __all__ = sorted(_EXPORTS)

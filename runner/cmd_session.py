@@ -32,6 +32,9 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--clock", choices=("real", "virtual"), default=None,
                         help="session clock (default: virtual when every adapter is simulated, "
                         "else real; any socket forces real)")
+    parser.add_argument("--live-grades", action=argparse.BooleanOptionalAction, default=None,
+                        help="grade every repetition as it ends, in a worker process (default: "
+                        "on for the real clock, off for the virtual clock)")
 
 
 def run(args: argparse.Namespace, console: Console) -> int:
@@ -40,9 +43,19 @@ def run(args: argparse.Namespace, console: Console) -> int:
     from echoreo.runner.session import run_session
 
     plan = load_plan(args.plan, participant=args.participant)
+    clock = args.clock or "auto"
+    live = args.live_grades
+    if live is None:
+        live = clock == "real" or (clock == "auto" and not plan.all_simulated)
+    callback = None
+    if live:
+        from echoreo.runner.livegrades import score_repetition
+
+        callback = score_repetition
     results: list = []
-    run_session(plan, out_dir=args.out, clock=args.clock or "auto",
-                participant=args.participant, console=console, result=results)
+    run_session(plan, out_dir=args.out, clock=clock, participant=args.participant,
+                console=console, result=results, on_repetition_end=callback,
+                grade_worker="process")
     res = results[0]
     samples = ", ".join(f"{n} {c}" for n, c in res.samples.items()) or "none"
     console.print(f"{res.outcome}: {res.ticks} commands, {res.duration_s:.1f} s of session "

@@ -29,8 +29,15 @@ from rich.panel import Panel
 from rich.table import Table
 from rich.text import Text
 
-__all__ = ["SAFETY_CAUTION", "LiveView", "PlainLog", "SessionStatus", "StreamStatus",
-           "make_view"]
+__all__ = [
+    "SAFETY_CAUTION",
+    "LiveView",
+    "PlainLog",
+    "SessionStatus",
+    "StreamStatus",
+    "make_view",
+    "render_status",
+]
 
 #: The caution shown in the live view (and printed at the start of plain runs).
 SAFETY_CAUTION = (
@@ -146,10 +153,11 @@ def render_status(st: SessionStatus) -> Group:
     where.add_row("tick lateness", f"last {st.lateness_ms:.2f} ms, max {st.lateness_max_ms:.2f}"
                                    f" ms, {st.late_ticks} late ticks")
     cue = Panel(Text(st.cue or " ", style="bold", justify="center"), title="cue")
-    streams = Table(title="streams", expand=True)
+    streams = Table(title="streams")
     for col in ("stream", "pairs with", "samples", "rate Hz", "dropped", "malformed", "gaps",
-                "latency ms", "offset ms ± unc"):
-        streams.add_column(col, justify="left" if col in ("stream", "pairs with") else "right")
+                "latency ms", "clock offset ± unc ms"):
+        streams.add_column(col, justify="left" if col in ("stream", "pairs with") else "right",
+                           no_wrap=col in ("stream", "rate Hz"))
     for s in st.streams:
         style = "bold red" if s.silent else None
         streams.add_row(s.name + (" (silent)" if s.silent else ""), s.pair, str(s.samples),

@@ -263,8 +263,7 @@ class _Monitor:
         self.latency_ns = float("nan")
         self.status = StreamStatus(
             name=info.name, nominal_hz=float(info.rate_hz),
-            pair=(f"{pair.site} <-> robot {pair.leader_site}" if pair is not None else
-                  "(not in plan)"))
+            pair=(f"robot {pair.leader_site}" if pair is not None else "(not in plan)"))
 
     def received(self, now_ns: int, n: int, last_t_ns: int,
                  window_ns: int = 2_000_000_000) -> None:
@@ -390,21 +389,26 @@ class _Grader:
 
 
 def _grade_text(job: RepetitionEnd, result: Any) -> str:
+    """One line for the live view: ``move #k: stream grade band flags; ...``."""
     label = f"{job.move} #{job.repetition}"
+
+    def one(r: dict) -> str:
+        if "error" in r:
+            return f"not graded ({r['error']})"
+        parts = [str(r["stream"])] if r.get("stream") else []
+        if r.get("grade") is not None:
+            parts.append(f"{float(r['grade']):.0f}")
+        if r.get("band"):
+            parts.append(str(r["band"]))
+        if r.get("flags"):
+            parts.append("[" + ",".join(map(str, r["flags"])) + "]")
+        return " ".join(parts)
+
     if isinstance(result, dict):
-        if "error" in result:
-            return f"{label}: not graded ({result['error']})"
-        grade = result.get("grade")
-        parts = [label]
-        if grade is not None:
-            parts.append(f"grade {float(grade):.0f}")
-        if result.get("band"):
-            parts.append(str(result["band"]))
-        if result.get("flags"):
-            parts.append("flags " + ",".join(map(str, result["flags"])))
-        return "  ".join(parts)
+        return f"{label}: {one(result)}"
     if isinstance(result, list | tuple):
-        return f"{label}: " + "; ".join(_grade_text(job, r).split(": ", 1)[-1] for r in result)
+        return f"{label}: " + ("; ".join(one(r) if isinstance(r, dict) else str(r)
+                                         for r in result) or "no grade yet")
     return f"{label}: {result}"
 
 
@@ -921,6 +925,8 @@ class _Session:
                         {"choreography": job.choreography, "move": job.move, "step": job.step,
                          "repetition": job.repetition, "result": _json_ready(result)}))
                     self.status.grades.append(_grade_text(job, result))
+                    _safe(lambda job=job, result=result: view.log(
+                        end_ns * 1e-9, f"grade {_grade_text(job, result)}"))
             for src in sources:
                 _safe(src.close)
             _safe(leader.close)

@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import subprocess
-import sys
 import textwrap
 from pathlib import Path
 
@@ -163,10 +161,12 @@ def test_relative_choreography_path(tmp_path):
     assert plan.items[0].path == (tmp_path / "sub" / "mine.yaml").resolve()
 
 
-def test_echoreo_check_reports_plan_problems(tmp_path):
-    """`echoreo check PLAN` exits 2 and prints the located problem (real subprocess)."""
+def test_echoreo_check_reports_plan_problems(tmp_path, capsys):
+    """`echoreo check PLAN` exits 2 and prints the located problem."""
+    from echoreo.runner.cli import main
+
     path = _write(tmp_path, GOOD.replace("consent_recorded: true\n", ""))
-    proc = subprocess.run([sys.executable, "-m", "echoreo.runner.cli", "check", str(path)],
-                          capture_output=True, text=True, timeout=60)
-    assert proc.returncode == 2
-    assert "consent" in proc.stdout + proc.stderr
+    assert main(["check", str(path)]) == 2
+    out = capsys.readouterr()
+    assert "consent" in out.out + out.err
+    assert main(["check", str(PLANS / "simulated.yaml")]) == 0

@@ -46,20 +46,24 @@ sequence:
 START_S = 30.0  # bound on a peer's start-up (imports numpy, zmq, the simulator)
 
 
-def _spawn(tmp_path: Path, command: str, *args: str) -> tuple[subprocess.Popen, str]:
-    ready = tmp_path / f"{command}.ready.json"
+def _start(tmp_path: Path, command: str, *args: str) -> subprocess.Popen:
     with open(tmp_path / f"{command}.out", "w") as out:   # the child keeps its own copy
-        proc = subprocess.Popen([sys.executable, "-m", "echoreo.runner.cli", command,
-                                 "--endpoint", "tcp://127.0.0.1:0", "--ready-file", str(ready),
-                                 "--duration", "60", *args],
+        return subprocess.Popen([sys.executable, "-m", "echoreo.runner.cli", command,
+                                 "--endpoint", "tcp://127.0.0.1:0", "--ready-file",
+                                 str(tmp_path / f"{command}.ready.json"), "--duration", "60",
+                                 *args],
                                 stdout=out, stderr=subprocess.STDOUT, stdin=subprocess.DEVNULL)
+
+
+def _ready(tmp_path: Path, command: str, proc: subprocess.Popen) -> str:
+    ready = tmp_path / f"{command}.ready.json"
     deadline = time.monotonic() + START_S
     while not ready.exists():
         assert proc.poll() is None, (tmp_path / f"{command}.out").read_text()
         assert time.monotonic() < deadline, f"{command} did not start"
         time.sleep(0.05)
     time.sleep(0.05)
-    return proc, json.loads(ready.read_text())["endpoint"]
+    return json.loads(ready.read_text())["endpoint"]
 
 
 def _stop(proc: subprocess.Popen) -> None:
@@ -75,10 +79,12 @@ def _stop(proc: subprocess.Popen) -> None:
 def test_session_over_zeromq(tmp_path):
     """Bridge and publisher in separate processes: the session completes on the real clock,
     every command is recorded and acknowledged states and all three streams arrive."""
-    bridge, ep_bridge = _spawn(tmp_path, "bridge")
+    bridge = _start(tmp_path, "bridge")
     try:
-        pub, ep_pub = _spawn(tmp_path, "publish", "--clock-offset", "3.7")
+        pub = _start(tmp_path, "publish", "--clock-offset", "3.7")
         try:
+            ep_bridge = _ready(tmp_path, "bridge", bridge)
+            ep_pub = _ready(tmp_path, "publish", pub)
             (tmp_path / "tiny.yaml").write_text(TINY, encoding="utf-8")
             (tmp_path / "plan.yaml").write_text(f"""\
 study: zmq-test
