@@ -1,9 +1,11 @@
 """``echoreo sessions FOLDER``: list the session files in a folder.
 
-One row per ``*.sqlite`` file: study, participant, the choreographies run,
-duration on the session clock, state, and per-stream health (samples,
-effective rate against the nominal rate, gaps). Opening a file that a crashed
-recorder left ``running`` marks it ``interrupted`` (see
+One row per ``*.sqlite`` file (study, participant, plan and the
+choreographies run, duration on the session clock, state, number of streams
+and gaps), then a stream-health table with one row per stream: samples,
+effective rate (samples − 1 over the first-to-last span) against the nominal
+rate, and gaps (silences longer than ``--gap-factor`` nominal periods).
+Opening a file that a crashed recorder left ``running`` marks it ``interrupted`` (see
 :mod:`echoreo.sessionfile`); files that are not session files are listed with
 the reason instead of stopping the listing.
 """
@@ -22,7 +24,7 @@ from rich.table import Table
 from echoreo.errors import InputError, Problem, SessionFileError
 from echoreo.sessionfile import SessionFile
 
-__all__ = ["add_arguments", "health_lines", "run"]
+__all__ = ["add_arguments", "run"]
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -41,32 +43,6 @@ def _fmt_duration(seconds: float) -> str:
     m, s = divmod(seconds, 60.0)
     h, m = divmod(int(m), 60)
     return f"{h}:{m:02d}:{s:04.1f}" if h else f"{m}:{s:04.1f}"
-
-
-def health_lines(sf: SessionFile, gap_factor: float = 3.0) -> list[str]:
-    """One line of health per stream: ``name  n samples  eff/nominal Hz  gaps``.
-
-    Parameters
-    ----------
-    sf : SessionFile
-        An open session file.
-    gap_factor : float
-        Gap threshold in nominal periods (see :meth:`SessionFile.stream_health`).
-
-    Returns
-    -------
-    list of str
-        Plain text, one entry per stream in the order they were added.
-    """
-    lines = []
-    for h in sf.stream_health(gap_factor).itertuples(index=False):
-        eff = f"{h.effective_hz:.1f}" if math.isfinite(h.effective_hz) else "-"
-        nom = f"{h.rate_hz:g}" if math.isfinite(h.rate_hz) else "?"
-        gaps = h.gaps
-        gap_txt = "no gaps" if gaps == 0 else (
-            f"{gaps} gap{'s' if gaps != 1 else ''} (longest {h.longest_gap_s:.2f} s)")
-        lines.append(f"{h.name}: {h.samples} samples, {eff}/{nom} Hz, {gap_txt}")
-    return lines
 
 
 def _plan_text(meta: dict) -> str:
@@ -103,10 +79,15 @@ def run(args: argparse.Namespace, console: Console) -> int:
     if not files:
         console.print(f"no session files (*.sqlite) in {escape(str(folder))}")
         return 0
-    table = Table(title=f"sessions in {escape(str(folder))}", show_lines=True)
+    table = Table(title=f"sessions in {escape(str(folder))}")
     for col in ("file", "study", "participant", "plan / choreographies", "duration", "state",
-                "stream health"):
+                "streams"):
         table.add_column(col, overflow="fold")
+    health = Table(title="stream health")
+    for col, justify in (("file", "left"), ("stream", "left"), ("kind", "left"),
+                         ("samples", "right"), ("rate Hz (eff / nominal)", "right"),
+                         ("gaps", "right"), ("longest gap s", "right")):
+        health.add_column(col, justify=justify, overflow="fold")
     counts: dict[str, int] = {}
     for path in files:
         name = escape(str(path.relative_to(folder)))
@@ -116,15 +97,28 @@ def run(args: argparse.Namespace, console: Console) -> int:
                 style = {"complete": "green", "interrupted": "yellow",
                          "running": "cyan"}.get(state, "red")
                 note = " (marked now)" if sf.marked_interrupted else ""
+                h = sf.stream_health(args.gap_factor)
+                n_gaps = int(h["gaps"].sum()) if len(h) else 0
                 table.add_row(name, escape(sf.study or "-"), escape(sf.participant or "-"),
                               escape(_plan_text(sf.meta)), _fmt_duration(sf.duration()),
                               f"[{style}]{state}{note}[/]",
-                              escape("\n".join(health_lines(sf, args.gap_factor)) or "-"))
+                              f"{len(h)}, {n_gaps} gap{'s' if n_gaps != 1 else ''}")
+                for i, r in enumerate(h.itertuples(index=False)):
+                    eff = f"{r.effective_hz:.1f}" if math.isfinite(r.effective_hz) else "-"
+                    nom = f"{r.rate_hz:g}" if math.isfinite(r.rate_hz) else "?"
+                    longest = f"{r.longest_gap_s:.2f}" if r.gaps else "-"
+                    gap_style = "yellow" if r.gaps else "green"
+                    health.add_row(name if i == 0 else "", escape(r.name),
+                                   escape(str(r.kind or "")), str(r.samples), f"{eff} / {nom}",
+                                   f"[{gap_style}]{r.gaps}[/]", longest,
+                                   end_section=i == len(h) - 1)
         except SessionFileError as exc:
             state = "unreadable"
             table.add_row(name, "-", "-", "-", "-", "[red]unreadable[/]",
                           escape(exc.problems[0].message))
         counts[state] = counts.get(state, 0) + 1
     console.print(table)
+    if health.row_count:
+        console.print(health)
     console.print(", ".join(f"{n} {s}" for s, n in sorted(counts.items())))
     return 0

@@ -53,8 +53,11 @@ def test_lists_complete_interrupted_and_unreadable(tmp_path):
     assert "P01.sqlite" in text and "P02.sqlite" in text and "notes.sqlite" in text
     assert "complete" in text and "interrupted" in text and "unreadable" in text
     assert "pilot-a: greeting" in text
-    assert "right_wrist_imu: 150 samples" in text and "1 gap" in text
-    assert "head_pose: 90 samples, 30.0/30 Hz, no gaps" in text
+    rows = {line.split("│")[2].strip(): [c.strip() for c in line.split("│")[3:8]]
+            for line in text.splitlines() if line.count("│") == 8}
+    # effective rate (150 - 1) / 1.99 s = 74.9 Hz; the hole is 0.99 s -> 1.50 s
+    assert rows["right_wrist_imu"] == ["imu", "150", "74.9 / 100", "1", "0.51"]
+    assert rows["head_pose"] == ["head_pose", "90", "30.0 / 30", "0", "-"]
     assert "1 complete, 1 interrupted, 1 unreadable" in text
 
 
