@@ -661,22 +661,31 @@ class _Parser:
 
 
 def _locate_reader_error(exc: InputError, name: str) -> list[Problem]:
-    """Give a line and column to YAML reader errors (bad characters), which PyYAML
-    reports by character position only."""
+    """Give a line and column to problems PyYAML and the decoder report by position only:
+    characters YAML does not allow, and bytes that are not UTF-8."""
     cause = exc.__cause__
-    if not isinstance(cause, yaml.reader.ReaderError) or exc.problems[0].line is not None:
+    if exc.problems[0].line is not None:
         return exc.problems
     try:
-        text = Path(name).read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError):
+        raw = Path(name).read_bytes()
+    except OSError:
         return exc.problems
-    before = text[: cause.position]
-    line = before.count("\n") + 1
-    column = cause.position - (before.rfind("\n") + 1) + 1
-    char = cause.character
-    shown = f"#x{ord(char):04x}" if isinstance(char, str) else repr(char)
-    return [Problem(f"not valid YAML: the character {shown} is not allowed in YAML text",
-                    name, line, column, "delete it or replace it with a printable character")]
+    if isinstance(cause, UnicodeDecodeError):
+        before = raw[: cause.start]
+        line = before.count(b"\n") + 1
+        column = cause.start - (before.rfind(b"\n") + 1) + 1
+        return [Problem(f"choreography is not UTF-8 text (byte 0x{raw[cause.start]:02x} at "
+                        f"byte {cause.start})", name, line, column, "save the file as UTF-8")]
+    if isinstance(cause, yaml.reader.ReaderError):
+        text = raw.decode("utf-8", errors="replace")
+        before = text[: cause.position]
+        line = before.count("\n") + 1
+        column = cause.position - (before.rfind("\n") + 1) + 1
+        char = cause.character
+        shown = f"#x{ord(char):04x}" if isinstance(char, str) else repr(char)
+        return [Problem(f"not valid YAML: the character {shown} is not allowed in YAML text",
+                        name, line, column, "delete it or replace it with a printable character")]
+    return exc.problems
 
 
 def parse_file(path: str | Path, robot: Any = None) -> tuple[dict[str, Any], _Parser]:

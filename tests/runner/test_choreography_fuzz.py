@@ -26,7 +26,7 @@ JOINTS = list(ROBOT.joint_names)
 POSE_NAMES = ["home", "a", "b", "c"]
 MOVE_NAMES = ["m1", "m2", "m3"]
 
-SETTINGS = settings(max_examples=70, deadline=None, derandomize=True,
+SETTINGS = settings(max_examples=50, deadline=None, derandomize=True,
                     suppress_health_check=[HealthCheck.too_slow])
 
 scalar = st.one_of(st.none(), st.booleans(), st.integers(-1000, 1000),
@@ -172,6 +172,21 @@ def test_random_text(text):
     """Arbitrary short texts of YAML punctuation are rejected with a location, never with a
     traceback."""
     assert check(text, 50.0) == "rejected"
+
+
+@settings(max_examples=40, deadline=None, derandomize=True)
+@given(data=st.binary(max_size=40))
+def test_random_bytes(data):
+    """Arbitrary bytes (often not UTF-8) are rejected with a location, never a traceback."""
+    with tempfile.TemporaryDirectory() as folder:
+        path = Path(folder) / "bytes.yaml"
+        path.write_bytes(data)
+        try:
+            load_choreography(path, robot=ROBOT)
+        except ChoreographyError as exc:
+            assert all(p.file == str(path) and p.line is not None for p in exc.problems)
+        else:
+            raise AssertionError("random bytes were accepted as a choreography")
 
 
 def test_the_generator_reaches_both_outcomes():
