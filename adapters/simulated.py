@@ -408,6 +408,23 @@ class SimulatedFollowers(FollowerSource):
                 out |= (t_ns >= a) & (t_ns < a + round(d.duration_s * 1e9))
         return out
 
+    def delay(self, dt_ns: int) -> None:
+        """Start everything ``dt_ns`` later (the session's first command moved later).
+
+        Device times move by the same span measured on the device clock, so
+        each stream stays on its device's regular grid. Only before the first
+        :meth:`poll` that delivered anything.
+        """
+        if dt_ns <= 0:
+            return
+        if any(f.cursor for f in self._feeds.values()):
+            raise RuntimeError("SimulatedFollowers.delay after samples were delivered")
+        shift_dev = round(dt_ns * (1.0 + self.clock_drift_ppm * 1e-6))
+        for f in self._feeds.values():
+            f.t_dev_ns += shift_dev
+            f.t_ns = self._map.to_session(f.t_dev_ns)
+            f.deliver_ns = f.t_ns + self._latency_ns
+
     def pause_at(self, t_ns: int) -> None:
         """The robot holds from session time ``t_ns``: the virtual person holds still too.
 

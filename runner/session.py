@@ -522,6 +522,16 @@ class _Session:
             for src in sources:
                 for info in src.connect(clock):
                     infos.append((src, info))
+            now = clock.now_ns()
+            if now > start_ns - 100_000_000:
+                # the followers took long to connect (a long simulation on the real clock):
+                # start later, and let simulated participants start later with the robot
+                later = int(math.ceil((now + 200_000_000) / 1e8) * 1e8)
+                for src in sources:
+                    hook = getattr(src, "delay", None)
+                    if hook is not None:
+                        hook(later - start_ns)
+                start_ns = later
         except BaseException:
             for src in sources:
                 _safe(src.close)

@@ -296,3 +296,39 @@ def test_virtual_clock_refused_for_sockets(tmp_path):
         run_session(plan, out_dir=tmp_path, clock="virtual")
     assert "real clock" in str(info.value)
     assert not list(tmp_path.glob("*.sqlite"))
+
+
+def test_ctrl_c_is_a_controlled_stop(plan_path, tmp_path):
+    """SIGINT (Ctrl-C) during a real-clock run: the robot ramps slowly to rest, the stop is
+    logged, the file is closed and the command exits 130 (runner/cli.py convention)."""
+    import json
+    import signal
+
+    plan = plan_path(replace=("  - tiny.yaml\n  - tiny.yaml\n", "  - tiny.yaml\n"))
+    proc = subprocess.Popen([sys.executable, "-m", "echoreo.runner.cli", "session", str(plan),
+                             "--clock", "real", "--no-live-grades", "--out",
+                             str(tmp_path / "out")],
+                            stdin=subprocess.DEVNULL, stdout=subprocess.PIPE,
+                            stderr=subprocess.STDOUT, text=True)
+    lines = []
+    try:
+        for line in proc.stdout:
+            lines.append(line)
+            if "cue: 1 of 2" in line:   # the first repetition has begun
+                proc.send_signal(signal.SIGINT)
+                break
+        rest = proc.communicate(timeout=60)[0]
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+    assert proc.returncode == 130, "".join(lines) + rest
+    assert "controlled stop (Ctrl-C)" in rest
+    f = SessionFile(next((tmp_path / "out").glob("*.sqlite")))
+    ev = f.events()
+    stop = json.loads(ev[ev["kind"] == "stop"]["detail"].iloc[0])
+    assert stop == {**stop, "reason": "Ctrl-C", "controlled": True}
+    assert f.state == "complete" and f.meta["outcome"] == "stopped"
+    plan_obj = load_plan(plan)
+    last = f.read_stream("leader_command").iloc[-1]
+    assert np.allclose([last[n] for n in plan_obj.robot.joint_names], plan_obj.robot.rest)
+    assert (ev["kind"] == "rep_end").sum() < 2
