@@ -592,10 +592,10 @@ class FileSource(FollowerSource):
 
     def poll(self) -> list[SampleBatch]:
         """All samples, once (one batch per stream); then an empty list."""
-        if self._batches is None:
-            raise RuntimeError("connect() first")
         if self._delivered:
             return []
+        if self._batches is None:
+            raise RuntimeError("connect() first")
         self._delivered = True
         return list(self._batches)
 
@@ -604,8 +604,9 @@ class FileSource(FollowerSource):
         return dict(self._maps)
 
     def close(self) -> None:
-        """Nothing to release."""
-        self._batches = None if self._delivered else self._batches
+        """Drop the samples held in memory; idempotent."""
+        self._batches = None
+        self._delivered = True
 
 
 def _stream_samples(sm: StreamMap, path: Path, header: list[str],
