@@ -126,9 +126,12 @@ class Recorder:
         ``software_version``, ``state`` (``running``) and ``writer`` are set by
         the recorder; ``utc_start`` defaults to now.
     commit_interval_s : float
-        Longest time, s, between handing data over and the start of its commit.
-        50 ms by default so commits land well inside the 100 ms bound of the
-        crash guarantee.
+        Longest time, s, a transaction stays open: the writer commits at most
+        this long (plus the execution of the item in hand) after taking the
+        first item of a batch from the queue. With the writer keeping up (no
+        backlog), that bounds the time from hand-over to commit. 50 ms by
+        default so commits land well inside the 100 ms bound of the crash
+        guarantee.
     synchronous : {"FULL", "NORMAL", "OFF", "EXTRA"}
         SQLite ``PRAGMA synchronous`` (see the module docstring for the
         durability each gives).
