@@ -532,12 +532,12 @@ class _Session:
                     if hook is not None:
                         hook(later - start_ns)
                 start_ns = later
+            self._check_streams(infos)
         except BaseException:
             for src in sources:
                 _safe(src.close)
             _safe(leader.close)
             raise
-        self._check_streams(infos)
 
         meta = {
             "study": plan.study, "participant": self.code, "mode": plan.mode,
@@ -564,7 +564,14 @@ class _Session:
             _safe(leader.close)
             raise
         self.status.path = str(path)
-        return self._play(clock, leader, sources, infos, program, start_ns, rec)
+        try:
+            return self._play(clock, leader, sources, infos, program, start_ns, rec)
+        finally:
+            # _play closes everything itself; this covers a failure before its loop
+            for src in sources:
+                _safe(src.close)
+            _safe(leader.close)
+            _safe(lambda: rec.close("interrupted"))
 
     def _check_hello(self, hello: Any, robot: Any) -> None:
         names = tuple(hello.joint_names)
@@ -664,7 +671,8 @@ class _Session:
         # clock and every 0.1 s of virtual time (the same samples, fewer batches).
         cmd_rows = _Rows("leader_command", 40_000_000 if real else 200_000_000)
         state_rows = _Rows("leader_state", 40_000_000 if real else 200_000_000)
-        poll_every = 1 if real else max(1, round(0.1 * rate))
+        poll_every = 1 if real else max(1, min(round(0.1 * rate),
+                                               int(plan.silent_after_s * rate / 4)))
         crashed = False
         next_map_ns = 0
         i = 0                      # program index of the next command
