@@ -585,7 +585,9 @@ class FileSource(FollowerSource):
             if len(problems) > _MAX_LISTED:
                 extra = len(problems) - _MAX_LISTED
                 problems = [*problems[:_MAX_LISTED],
-                            Problem(f"... and {extra} more problems of the same kinds")]
+                            Problem(f"... and {extra} more problems of the same kinds",
+                                    problems[_MAX_LISTED].file,
+                                    hint="fix the ones listed and run again")]
             raise InputError(problems)
         self._infos, self._batches = infos, batches
         return list(infos)

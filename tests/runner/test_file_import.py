@@ -10,6 +10,8 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from echoreo.adapters.file_import import FileSource, ImportMapping
 from echoreo.errors import InputError
@@ -144,6 +146,15 @@ def test_bad_data_is_located(tmp_path, table, where, what):
     assert all(p.hint or p.file for p in info.value.problems)
 
 
+def test_many_bad_rows_are_listed_then_counted(tmp_path):
+    (tmp_path / "d.csv").write_text("t,a\n" + "x,1\n" * 40, encoding="utf-8")
+    with pytest.raises(InputError) as info:
+        FileSource(ImportMapping.from_cli("t:s", ["s:imu:a[g]"]), tmp_path / "d.csv").connect()
+    problems = info.value.problems
+    assert len(problems) == 26 and "15 more problems" in problems[-1].message
+    assert problems[-1].file == str(tmp_path / "d.csv")
+
+
 def test_all_bad_rows_reported_in_one_pass(tmp_path):
     rows = ["time_ms,ax,gz,yaw"] + [f"{i * 10},{'bad' if i % 2 else 1},2,3" for i in range(8)]
     (tmp_path / "wrist.csv").write_text("\n".join(rows) + "\n", encoding="utf-8")
@@ -272,3 +283,20 @@ def test_imported_data_scores_like_the_same_data_recorded(tmp_path):
     np.testing.assert_allclose(b["grade"].to_numpy(float), a["grade"].to_numpy(float),
                                rtol=0, atol=1e-6)
     assert b["band"].tolist() == a["band"].tolist()
+
+
+_CHARS = "0123456789.,;-+eE\t\n\r\" #xnaNinf"
+
+
+@settings(max_examples=300, deadline=None)
+@given(body=st.text(alphabet=_CHARS, max_size=300))
+def test_random_tables_never_crash(tmp_path_factory, body):
+    """Any text after a valid header either imports or raises a located InputError."""
+    folder = tmp_path_factory.mktemp("fuzz")
+    f = folder / "d.csv"
+    f.write_text("t,a,b\n" + body, encoding="utf-8")
+    m = ImportMapping.from_cli("t:ms", ["s:imu:a[g],b[deg/s]"])
+    try:
+        FileSource(m, f).connect(None)
+    except InputError as exc:
+        assert all(p.file for p in exc.problems)
