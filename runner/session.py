@@ -337,8 +337,11 @@ class _Grader:
             import multiprocessing as mp
             from concurrent.futures import ProcessPoolExecutor
 
+            # spawn: no fork of a process with running threads; nice 10: on a small
+            # machine the scheduler gives the command loop the CPU before the scorer
             self._executor = ProcessPoolExecutor(max_workers=1,
-                                                 mp_context=mp.get_context("spawn"))
+                                                 mp_context=mp.get_context("spawn"),
+                                                 initializer=_lower_priority)
         self.pending = 0
         self._thread = threading.Thread(target=self._run, name="live-grades", daemon=True)
         self._thread.start()
@@ -386,6 +389,16 @@ class _Grader:
         self._thread.join(timeout=timeout_s)
         if self._executor is not None:
             self._executor.shutdown(wait=False, cancel_futures=True)
+
+
+def _lower_priority() -> None:
+    """Worker-process initializer: lower the scheduling priority (nice +10)."""
+    import os
+
+    try:
+        os.nice(10)
+    except (AttributeError, OSError):  # not available here: run at normal priority
+        pass
 
 
 def _grade_text(job: RepetitionEnd, result: Any) -> str:
