@@ -25,10 +25,11 @@ Pipeline (``scoring/METHODS.md`` sections 2 and 3):
 from __future__ import annotations
 
 import math
+import time
 from collections.abc import Callable, Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, NamedTuple
 
 import numpy as np
 import pandas as pd
@@ -176,6 +177,8 @@ class SessionScores:
         ``axis`` (3,), ``components`` (component scores), ``correlation``,
         ``rms_leader``, ``rms_follower``, ``motion_ratio``; arrays are None where
         not computed.
+    timings : dict of str to float
+        Wall time of each stage, s (for benchmarks; reading is ``"read"``).
     """
 
     session: str
@@ -184,6 +187,7 @@ class SessionScores:
     problems: list[Problem]
     params: ScoringParams
     details: list[dict] | None = None
+    timings: dict[str, float] = field(default_factory=dict)
 
     def detail(self, index: int) -> dict:
         """Plot details of record ``index`` (requires ``details=True`` when scoring)."""
@@ -565,10 +569,17 @@ def _rms(x: np.ndarray) -> float:
 
 
 def _steps(moves: pd.DataFrame) -> list[tuple[int, tuple[str, str], pd.DataFrame]]:
-    """Steps in time order as ``(step, (choreography, move), spans)``; step numbers restart
-    in every choreography of a session, so a step is keyed by both."""
-    return [(int(key[1]), (str(grp["choreography"].iloc[0]), str(grp["move"].iloc[0])), grp)
-            for key, grp in moves.groupby(["choreography", "step"], sort=False)]
+    """Steps in time order as ``(step, (choreography, move), spans)``.
+
+    A step is a run of consecutive move spans with the same choreography and
+    step number: step numbers restart in every choreography of a session, and
+    a plan may run the same choreography twice.
+    """
+    key = moves["choreography"].astype(str) + "\x00" + moves["step"].astype(str)
+    block = (key != key.shift()).cumsum()
+    return [(int(grp["step"].iloc[0]), (str(grp["choreography"].iloc[0]),
+                                          str(grp["move"].iloc[0])), grp)
+            for _, grp in moves.groupby(block, sort=True)]
 
 
 def _leader_segments(prep: _Prepared) -> dict[str, list[np.ndarray]]:
@@ -628,6 +639,15 @@ def session_embedding(path_or_data: Any, params: ScoringParams | None = None
 
 
 # --------------------------------------------------------------------------- scoring
+
+
+class _Row(NamedTuple):
+    choreography: str
+    step: int
+    move: str
+    repetition: int
+    t_start: float
+    t_end: float
 
 
 def _base_record(data: SessionData, pd_: _PairData, row: Any, params: ScoringParams) -> dict:
@@ -712,7 +732,12 @@ def score_data(data: SessionData, params: ScoringParams | None = None, *,
         the rest is scored.
     """
     params = params or ScoringParams()
+    clock = time.perf_counter
+    timings: dict[str, float] = {}
+    mark = clock()
     prep = _prepare(data, params)
+    timings["resample, references, filter"] = clock() - mark
+    mark = clock()
     problems = prep.problems
     file = data.path
     cfg = params.grade
@@ -733,10 +758,17 @@ def score_data(data: SessionData, params: ScoringParams | None = None, *,
     records: list[dict] = []
     det: list[dict] = []
     extra: list[dict] = []  # per record: private values for the second pass
+    timings["embedding choice"] = clock() - mark
+    mark = clock()
     steps = _steps(prep.moves)
     step_lags = [_step_lags(prep, grp, move, lag_lo, lag_hi) for _, move, grp in steps]
     reliable = [v[0] for lags in step_lags for v in lags.values()]
     session_lag = int(np.median(reliable)) if reliable else lag_lo
+    timings["lags"] = clock() - mark
+    mark = clock()
+    # plain records instead of itertuples, which builds a namedtuple class per call
+    rows_of = {id(grp): [_Row(**r) for r in grp[list(_Row._fields)].to_dict("records")]
+               for _, _, grp in steps}
     for (step, move, grp), lags in zip(steps, step_lags, strict=True):
         # a pair without a reliable lag of its own takes the step's median, else the session's
         borrowed = int(np.median([v[0] for v in lags.values()])) if lags else session_lag
@@ -746,7 +778,7 @@ def score_data(data: SessionData, params: ScoringParams | None = None, *,
             choice = params.embedding_for(kind)
             u = pd_.axes.get(move, np.eye(3)[0])
             lag, _, at_edge, own_lag = lags.get(name, (borrowed, _NAN, False, False))
-            for row in grp.itertuples(index=False):
+            for row in rows_of[id(grp)]:
                 rec = _base_record(data, pd_, row, params)
                 rec["delay"] = int(choice.delay)
                 rec["dim"] = int(choice.dim)
@@ -823,12 +855,15 @@ def score_data(data: SessionData, params: ScoringParams | None = None, *,
                          leader_dist=cmp.leader_dist, follower_dist=cmp.follower_dist,
                          correlation=ex["corr"])
 
+    timings["metrics (embed, PCA, distances, CRQA)"] = clock() - mark
+    mark = clock()
     _second_pass(records, extra, det, cfg)
     df = pd.DataFrame.from_records(records, columns=list(RECORD_FIELDS))
     for c in ("step", "repetition"):
         df[c] = df[c].astype(np.int64)
+    timings["grades and flags"] = clock() - mark
     return SessionScores(data.session, data.path, df, problems, params,
-                         det if details else None)
+                         det if details else None, timings)
 
 
 def _second_pass(records: list[dict], extra: list[dict], det: list[dict], cfg) -> None:
@@ -923,9 +958,13 @@ def score_session(path_or_sessionfile: Any, params: ScoringParams | None = None,
     SessionScores
         ``.records`` has the columns of :data:`RECORD_FIELDS`.
     """
+    mark = time.perf_counter()
     data = (path_or_sessionfile if isinstance(path_or_sessionfile, SessionData)
             else read_session(path_or_sessionfile, params))
-    return score_data(data, params, details=details)
+    read_s = time.perf_counter() - mark
+    scores = score_data(data, params, details=details)
+    scores.timings = {"read": read_s, **scores.timings}
+    return scores
 
 
 def score_study(paths: Sequence[Any], params: ScoringParams | None = None, *,
