@@ -138,18 +138,39 @@ def fnn(x: object, delay: int, max_dim: int = 10, rtol: float = 15.0,
     *Physical Review A* 45(6):3403-3411.
     """
     series, delay, max_dim = _prepare(x, delay, max_dim)
-    n = series.shape[0]
     r_a = float(np.std(series))
-    out = np.empty(max_dim)
-    for d in range(1, max_dim + 1):
-        count = n - d * delay
-        points = embed(series, d, delay)[:count]
-        nb, r_d = _nearest_other(points, p=2.0, nonzero=False)
-        gap = np.abs(series[d * delay : d * delay + count] - series[nb + d * delay])
-        false1 = gap > rtol * r_d
-        false2 = np.sqrt(r_d * r_d + gap * gap) > atol * r_a
-        out[d - 1] = np.count_nonzero(false1 | false2) / count
-    return out
+    return np.array([_fnn_fraction(series, delay, d, rtol, atol, r_a)
+                     for d in range(1, max_dim + 1)])
+
+
+def _fnn_fraction(series: np.ndarray, delay: int, d: int, rtol: float, atol: float,
+                  r_a: float) -> float:
+    """Fraction of false nearest neighbours at dimension d (see :func:`fnn`)."""
+    count = series.shape[0] - d * delay
+    points = embed(series, d, delay)[:count]
+    nb, r_d = _nearest_other(points, p=2.0, nonzero=False)
+    gap = np.abs(series[d * delay : d * delay + count] - series[nb + d * delay])
+    false1 = gap > rtol * r_d
+    false2 = np.sqrt(r_d * r_d + gap * gap) > atol * r_a
+    return np.count_nonzero(false1 | false2) / count
+
+
+def _cao_e(series: np.ndarray, delay: int, d: int) -> tuple[float, float]:
+    """Cao's E(d) and E*(d) (see :func:`cao`)."""
+    count = series.shape[0] - d * delay
+    points = embed(series, d, delay)[:count]
+    nb, r_d = _nearest_other(points, p=np.inf, nonzero=True)
+    keep = nb >= 0
+    if not keep.any():
+        raise ScoringInputError(
+            f"every delay vector of dimension {d} is identical to all others; "
+            "Cao's statistics are undefined"
+        )
+    own = np.flatnonzero(keep)
+    gap = np.abs(series[own + d * delay] - series[nb[keep] + d * delay])
+    # In the maximum norm the (d+1)-distance is max(R_d, |new coordinate gap|).
+    e = float(np.mean(np.maximum(r_d[keep], gap) / r_d[keep]))
+    return e, float(np.mean(gap))
 
 
 def cao(x: object, delay: int, max_dim: int = 10) -> CaoResult:
@@ -205,24 +226,8 @@ def cao(x: object, delay: int, max_dim: int = 10) -> CaoResult:
     dimension of a scalar time series. *Physica D* 110(1-2):43-50.
     """
     series, delay, max_dim = _prepare(x, delay, max_dim)
-    n = series.shape[0]
-    e = np.empty(max_dim)
-    e_star = np.empty(max_dim)
-    for d in range(1, max_dim + 1):
-        count = n - d * delay
-        points = embed(series, d, delay)[:count]
-        nb, r_d = _nearest_other(points, p=np.inf, nonzero=True)
-        keep = nb >= 0
-        if not keep.any():
-            raise ScoringInputError(
-                f"every delay vector of dimension {d} is identical to all others; "
-                "Cao's statistics are undefined"
-            )
-        own = np.flatnonzero(keep)
-        gap = np.abs(series[own + d * delay] - series[nb[keep] + d * delay])
-        # In the maximum norm the (d+1)-distance is max(R_d, |new coordinate gap|).
-        e[d - 1] = float(np.mean(np.maximum(r_d[keep], gap) / r_d[keep]))
-        e_star[d - 1] = float(np.mean(gap))
+    values = np.array([_cao_e(series, delay, d) for d in range(1, max_dim + 1)])
+    e, e_star = values[:, 0], values[:, 1]
     with np.errstate(divide="ignore", invalid="ignore"):
         e2 = np.where(e_star[:-1] > 0, e_star[1:] / np.where(e_star[:-1] > 0, e_star[:-1], 1.0),
                       np.nan)
@@ -285,14 +290,25 @@ def choose_dimension(x: object, delay: int, method: Literal["fnn", "cao"] = "fnn
             hint="use a smaller delay or a longer series",
         )
     max_dim = min(max_dim, testable)
+    # Dimensions are evaluated in increasing order and the search stops at the first
+    # that meets the criterion; the result equals that of the full fnn()/cao() curves.
+    series, delay, max_dim = _prepare(series, delay, max_dim)
     if method == "fnn":
         level = FNN_THRESHOLD if threshold is None else float(threshold)
-        fractions = fnn(series, delay, max_dim=max_dim)
-        below = np.flatnonzero(fractions < level)
-        return int(below[0]) + 1 if below.size else int(np.argmin(fractions)) + 1
+        r_a = float(np.std(series))
+        fractions = []
+        for d in range(1, max_dim + 1):
+            fractions.append(_fnn_fraction(series, delay, d, 15.0, 2.0, r_a))
+            if fractions[-1] < level:
+                return d
+        return int(np.argmin(fractions)) + 1
     if method == "cao":
         level = CAO_THRESHOLD if threshold is None else float(threshold)
-        e1, _ = cao(series, delay, max_dim=max_dim)
-        above = np.flatnonzero(e1 >= level)
-        return int(above[0]) + 1 if above.size else max_dim
+        previous = _cao_e(series, delay, 1)[0]
+        for d in range(1, max_dim):
+            current = _cao_e(series, delay, d + 1)[0]
+            if current / previous >= level:
+                return d
+            previous = current
+        return max_dim
     raise ScoringInputError(f"method must be 'fnn' or 'cao'; got {method!r}")

@@ -12,7 +12,7 @@ from echoreo.scoring._checks import as_series, check_positive_int, require_not_c
 __all__ = ["ami", "choose_delay", "freedman_diaconis_bins", "sturges_bins"]
 
 # Lags evaluated per vectorised pass of choose_delay before it looks for a minimum.
-_LAG_CHUNK = 32
+_LAG_CHUNK = 8
 
 
 def sturges_bins(n: int) -> int:
@@ -186,7 +186,7 @@ def choose_delay(x: object, max_lag: int | None = None, bins: int | None = None)
 
     The delay is the smallest :math:`\tau \ge 1` with
     :math:`I(\tau-1) > I(\tau) \le I(\tau+1)` (Fraser & Swinney 1986), :math:`I`
-    as in :func:`ami`. Lags are evaluated in passes of 32 and the search stops at
+    as in :func:`ami`. Lags are evaluated in passes of 8 and the search stops at
     the first minimum, so a long ``max_lag`` costs nothing when the minimum is early.
 
     Fallbacks (our own choice, not from Fraser & Swinney): when :math:`I` has no
