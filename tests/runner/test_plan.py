@@ -170,3 +170,34 @@ def test_echoreo_check_reports_plan_problems(tmp_path, capsys):
     out = capsys.readouterr()
     assert "consent" in out.out + out.err
     assert main(["check", str(PLANS / "simulated.yaml")]) == 0
+
+
+_VALUES = [None, True, False, 0, -1, 3.5, 1e9, "", "x", "P01", "mirror", "simulated",
+           "warmup-head", [], ["warmup-head"], {}, {"adapter": "simulated"},
+           {"adapter": "zmq", "endpoint": "tcp://127.0.0.1:1"}, [{"stream": "a"}],
+           [{"stream": "head_pose", "kind": "head_pose", "site": "head"}]]
+
+
+def test_mutated_plans_never_crash(tmp_path):
+    """Property (STYLE.md, parsers): replacing any top-level value of a valid plan with any
+    value of another type gives a loaded plan or a PlanError, never another exception."""
+    import yaml
+    from hypothesis import HealthCheck, given, settings
+    from hypothesis import strategies as st
+
+    base = yaml.safe_load(GOOD)
+    keys = [*sorted(base), "silent_stream", "ramp_speed_fraction", "bogus"]
+
+    @settings(max_examples=30, deadline=None,
+              suppress_health_check=[HealthCheck.function_scoped_fixture])
+    @given(st.dictionaries(st.sampled_from(keys), st.sampled_from(_VALUES), max_size=3))
+    def check(changes):
+        doc = {**base, **changes}
+        path = tmp_path / "m.yaml"
+        path.write_text(yaml.safe_dump(doc), encoding="utf-8")
+        try:
+            load_plan(path)
+        except PlanError as exc:
+            assert exc.problems and all(p.file for p in exc.problems)
+
+    check()
