@@ -560,7 +560,11 @@ class _Session:
                                        strict=True)),
             "pairs": [p.as_meta() for p in plan.pairs], "command_rate_hz": rate,
             "program_start_ns": start_ns, "program_ticks": program.n_ticks,
-            "leader_adapter": plan.leader.adapter,
+            "leader_adapter": plan.leader.adapter, "leader_robot": str(hello.robot),
+            "clock_info": {"kind": clock.kind, "utc_start": clock.utc_start,
+                           "source": ("time.monotonic_ns (CLOCK_MONOTONIC)" if clock.kind == "real"
+                                      else "virtual (advanced by the scheduler)"),
+                           "program_start_ns": start_ns, "command_rate_hz": rate},
             "follower_adapters": [f.adapter for f in plan.followers],
         }
         self.out_dir.mkdir(parents=True, exist_ok=True)
