@@ -938,7 +938,9 @@ class _Session:
                                                      "controlled": True})
             if not crashed:
                 # keep reading for a moment: samples in flight, the last states
-                drain_until = end_ns + int(DRAIN_S * 1e9)
+                lag_s = max([float(getattr(src, "latency_s", 0.0)) for src in sources],
+                            default=0.0)
+                drain_until = end_ns + int((DRAIN_S + lag_s) * 1e9)
                 while True:
                     tick = _safe(sched.wait)
                     if tick is None or tick.deadline_ns > drain_until:
