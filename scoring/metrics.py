@@ -227,8 +227,9 @@ def compare_repetition(leader: np.ndarray, follower: np.ndarray, dim: int, delay
     1. Remove each signal's mean over the repetition (offsets, sensor bias).
     2. Embed both with :math:`(m, \\tau)`: :math:`\\mathbf{y}_i = (x_i, x_{i+\\tau},
        \\dots, x_{i+(m-1)\\tau})` (Takens 1981).
-    3. PCA of the leader's embedding; both embeddings projected into its
-       first :math:`k = \\min(3, m)` components (Broomhead & King 1986).
+    3. PCA of the leader's embedding; both embeddings, each centred on its
+       own mean, projected onto its first :math:`k = \\min(3, m)` principal
+       axes (Broomhead & King 1986).
     4. Distances from the origin, their median and IQR ratios and the
        Wasserstein distance between the two distance distributions; the
        shape distance; cross recurrence of the two projected trajectories
@@ -296,7 +297,9 @@ def compare_repetition(leader: np.ndarray, follower: np.ndarray, dim: int, delay
     k = min(n_components, dim)
     pca = _leader_basis(el, k)
     pl = np.asarray(pca.transform(el))
-    pf = np.asarray(pca.transform(ef))
+    # the follower's embedding is centred on its own mean, then rotated into the leader's
+    # axes: exact for gains and offsets (P_F = (E_F - mean E_F) V_L^T)
+    pf = np.asarray(pca.transform(ef - ef.mean(axis=0) + pca.mean_))
     dl = distances_from_origin(pl)
     df = distances_from_origin(pf)
     size = float(np.median(dl))

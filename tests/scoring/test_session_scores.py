@@ -97,3 +97,53 @@ def test_given_embedding_is_used_and_study_choice_is_a_median():
     assert (c.dim, c.delay) == (4, 15)
     with pytest.raises(Exception, match="dim_method"):
         ScoringParams(dim_method="pca")
+
+
+def test_recorded_leader_sensor_gives_the_virtual_sensor_scores(world):
+    """A recorded leader IMU at the paired leader site (named by the pair's leader_stream),
+    reflected in mirror mode, gives the same grades as the virtual sensor computed from the
+    joints (both are the leader's gyroscope; METHODS.md 2.2)."""
+    from echoreo.scoring import StreamArrays
+    from echoreo.sim import imu
+
+    robot, tl = world
+    base = _data(world, PROFILES["good"])
+    acc, gyro = imu(robot, tl.t, tl.q, "left_wrist")
+    lead = StreamArrays("leader_left_wrist_imu", "imu",
+                        ("acc_x", "acc_y", "acc_z", "gyro_x", "gyro_y", "gyro_z"),
+                        np.asarray(tl.t), np.column_stack([acc, gyro]))
+    pairs = [dict(p) for p in base.pairs]
+    for p in pairs:
+        if p["stream"] == "right_wrist_imu":
+            p["leader_stream"] = "leader_left_wrist_imu"
+    streams = dict(base.streams, leader_left_wrist_imu=lead)
+    params = ScoringParams(embedding=(EmbeddingChoice("imu", 3, 15),
+                                      EmbeddingChoice("head_pose", 3, 15)))
+    import dataclasses
+
+    with_rec = dataclasses.replace(base, pairs=tuple(pairs), streams=streams)
+    a = score_data(base, params).records
+    b = score_data(with_rec, params).records
+    right = a["stream"] == "right_wrist_imu"
+    assert np.allclose(a.loc[right, "grade"], b.loc[right, "grade"], atol=0.5)
+
+
+def test_score_study_shares_one_embedding_and_results_pickle(tmp_path, world):
+    """score_study chooses one (dim, delay) per kind for all sessions and scores each with
+    it; per-session results pickle (process pools)."""
+    import pickle
+
+    from echoreo.scoring import score_study
+
+    d1 = _data(world, PROFILES["good"], seed=1)
+    d2 = _data(world, PROFILES["good_loose"], seed=2)
+    study = score_study([d1, d2])
+    assert len(study.sessions) == 2 and len(study.records) == sum(
+        len(s.records) for s in study.sessions)
+    for kind in ("imu", "head_pose"):
+        c = study.params.embedding_for(kind)
+        for s in study.sessions:
+            sub = s.records[s.records["kind"] == kind]
+            assert (sub["dim"] == c.dim).all() and (sub["delay"] == c.delay).all()
+    again = pickle.loads(pickle.dumps(study.sessions[0]))
+    assert again.records.equals(study.sessions[0].records)
