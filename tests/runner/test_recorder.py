@@ -127,3 +127,33 @@ def test_exit_without_close_commits_and_marks_interrupted(tmp_path):
     with SessionFile(path) as sf:
         assert sf.state == "interrupted" and not sf.marked_interrupted
         assert len(sf.read_stream("s")) == 500
+
+
+def test_many_threads_hand_over_concurrently(tmp_path):
+    """Four producer threads writing their own streams: every row lands exactly once."""
+    import threading
+
+    rec = Recorder(tmp_path / "s.sqlite", {}, synchronous="NORMAL")
+    for i in range(4):
+        rec.add_stream({"name": f"s{i}", "kind": "x", "channels": ["v"], "units": ["1"],
+                        "rate_hz": 200.0})
+
+    def produce(i: int) -> None:
+        for k in range(250):
+            seq = np.arange(20) + 20 * k
+            rec.write(f"s{i}", seq * 5_000_000, seq, seq, seq.astype(float) + i)
+            if k % 50 == 0:
+                rec.event(int(seq[0]) * 5_000_000, "cue", f"s{i}", {"k": k})
+
+    threads = [threading.Thread(target=produce, args=(i,)) for i in range(4)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    rec.close()
+    with SessionFile(tmp_path / "s.sqlite") as sf:
+        for i in range(4):
+            df = sf.read_stream(f"s{i}", order="arrival")
+            np.testing.assert_array_equal(df["seq"], np.arange(5000))
+            np.testing.assert_array_equal(df["v"], np.arange(5000) + i)
+        assert len(sf.events("cue")) == 20
