@@ -81,6 +81,9 @@ RECORD_FIELDS: tuple[str, ...] = (
 _METRICS = ("median_ratio", "iqr_ratio", "wasserstein", "shape_distance", "crqa_RR",
             "crqa_DET", "crqa_L", "crqa_Lmax", "crqa_ENTR", "crqa_LAM", "crqa_TT")
 _NAN = float("nan")
+#: peak-to-peak below which a follower's channels count as exactly constant (no real
+#: sensor on a person reads the same value for a whole repetition)
+_STUCK = 1e-9
 
 
 # --------------------------------------------------------------------------- data holders
@@ -822,6 +825,13 @@ def score_data(data: SessionData, params: ScoringParams | None = None, *,
                         f"{where}: data missing across a gap longer than "
                         f"{params.max_gap_s:g} s ({', '.join(who)}); flagged missing_data, "
                         "not scored", file))
+                    rec["flags"] = ["missing_data"]
+                    continue
+                if float(np.ptp(F, axis=0).max()) <= _STUCK:
+                    problems.append(Problem(
+                        f"{where}: the follower's {', '.join(KIND_CHANNELS[kind])} are "
+                        "constant through the repetition (a stuck or disconnected sensor?); "
+                        "flagged missing_data, not scored", file))
                     rec["flags"] = ["missing_data"]
                     continue
                 sl = R @ u
