@@ -65,7 +65,7 @@ class GradeConfig:
         ``lag`` flag above this lag.
     amplitude_low, amplitude_high : float
         ``amplitude_low`` below, ``amplitude_high`` above these motion ratios
-        (follower RMS motion over the leader's, see METHODS.md 3.3).
+        (follower RMS motion over the leader's, see METHODS.md 3.2).
     asymmetry_limit : float
         ``asymmetry`` when the two wrists' motion ratios differ by more than
         this factor.
