@@ -113,7 +113,9 @@ class LinkEngine(threading.Thread):
         check_endpoint(endpoint, self.keys, "connect to")
         sock = self.ctx.socket(zmq.DEALER)
         sock.linger = 0
-        sock.immediate = True        # no queueing for absent peers: no stale command bursts
+        # ZMQ_IMMEDIATE stays 0: with it libzmq terminates the pipe on every disconnect,
+        # and a disconnect in the middle of reading a multipart message then trips an
+        # assertion in libzmq 4.3.5 (fq.cpp:80) that aborts the process.
         sock.maxmsgsize = SOCKET_MAX_FRAME_BYTES
         sock.rcvhwm = 100_000
         sock.sndhwm = 10_000

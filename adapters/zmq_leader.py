@@ -38,6 +38,7 @@ class _LeaderEngine(LinkEngine):
         self.mode = ""
         self.lost = False
         self.errors: deque[dict] = deque(maxlen=100)
+        self.commands_dropped = 0
 
     def on_message(self, peer: Peer, msg: Message, t_rx_ns: int) -> None:
         m = msg.meta
@@ -154,12 +155,15 @@ class ZmqLeader(Leader):
         return self._engine, self._peer
 
     def send(self, command: Command) -> None:
-        """Send one command (non-blocking; dropped while the bridge is unreachable)."""
+        """Send one command (non-blocking; dropped, and counted, once the bridge is lost)."""
         eng, peer = self._require()
         q = np.asarray(command.q, dtype=np.float64)
         if q.shape != (len(self.joint_names),):
             raise InputError(f"command {command.seq} has {q.size} joint values; the bridge "
                              f"has {len(self.joint_names)} joints {self.joint_names}")
+        if eng.lost:
+            eng.commands_dropped += 1  # never queue commands for a bridge that is gone
+            return
         eng.submit(peer, encode(MsgType.COMMAND, {"seq": int(command.seq),
                                                   "t_ns": int(command.t_ns)}, q))
 
@@ -225,5 +229,6 @@ class ZmqLeader(Leader):
             return {"acks": eng.acks, "acked_seq": eng.acked_seq,
                     "rejections": list(eng.rejections), "malformed": peer.malformed,
                     "send_dropped": peer.send_dropped, "errors": list(eng.errors),
+                    "commands_dropped": eng.commands_dropped,
                     "offset_ns": cmap.offset_ns, "uncertainty_ns": cmap.uncertainty_ns,
                     "mode": eng.mode, "alive": self.alive()}

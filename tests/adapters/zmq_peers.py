@@ -16,6 +16,7 @@ import time
 from pathlib import Path
 
 PEER_START_S = 20.0  # bound on a peer's start-up (imports numpy, zmq, the simulator)
+PEER_LIFETIME_S = 120.0  # every peer stops by itself after this long
 
 
 class MonotonicClock:
@@ -94,6 +95,8 @@ class Peers:
         ready.unlink(missing_ok=True)
         out = self.tmp_path / f"{tag}.out"
         env = dict(os.environ, COLUMNS="200")
+        if "--duration" not in args:  # a safety net: a peer ends by itself even if we die
+            args = (*args, "--duration", str(PEER_LIFETIME_S))
         with open(out, "w") as fh:
             proc = subprocess.Popen(
                 [sys.executable, "-m", "echoreo.runner.cli", command, *args,
