@@ -171,22 +171,35 @@ def ami(x: object, max_lag: int, bins: int | None = None) -> np.ndarray:
     return _ami_lags(_weights(series, bins), bins, np.arange(max_lag + 1))
 
 
+#: A minimum must not be undercut within this many following lags (see choose_delay).
+_AHEAD = 2
+
+
 def _first_local_minimum(values: np.ndarray) -> int | None:
-    """Smallest tau >= 1 with I(tau - 1) > I(tau) <= I(tau + 1), or None."""
+    """Smallest tau >= 1 with I(tau - 1) > I(tau) <= I(tau + k), k = 1.._AHEAD, or None."""
     v = values
-    if v.shape[0] < 3:
+    last = v.shape[0] - 1 - _AHEAD
+    if last < 1:
         return None
-    is_min = (v[1:-1] < v[:-2]) & (v[1:-1] <= v[2:])
+    taus = np.arange(1, last + 1)
+    is_min = v[taus] < v[taus - 1]
+    for k in range(1, _AHEAD + 1):
+        is_min &= v[taus] <= v[taus + k]
     hits = np.flatnonzero(is_min)
-    return int(hits[0]) + 1 if hits.size else None
+    return int(taus[hits[0]]) if hits.size else None
 
 
 def choose_delay(x: object, max_lag: int | None = None, bins: int | None = None) -> int:
     r"""Embedding delay: the first local minimum of the average mutual information.
 
-    The delay is the smallest :math:`\tau \ge 1` with
-    :math:`I(\tau-1) > I(\tau) \le I(\tau+1)` (Fraser & Swinney 1986), :math:`I`
-    as in :func:`ami`. Lags are evaluated in passes of 8 and the search stops at
+    The delay is the first local minimum of :math:`I` (Fraser & Swinney 1986), :math:`I`
+    as in :func:`ami`: the smallest :math:`\tau \ge 1` with
+
+    .. math:: I(\tau-1) > I(\tau) \le \min\{I(\tau+1), I(\tau+2)\}.
+
+    Looking two lags ahead (our choice) keeps the sampling wiggles of a flat
+    minimum (about 0.002 nats for a noisy sine of 2,000 samples) from ending the
+    search a few lags early. Lags are evaluated in passes of 8 and the search stops at
     the first minimum, so a long ``max_lag`` costs nothing when the minimum is early.
 
     Fallbacks (our own choice, not from Fraser & Swinney): when :math:`I` has no
@@ -233,8 +246,8 @@ def choose_delay(x: object, max_lag: int | None = None, bins: int | None = None)
     bins = freedman_diaconis_bins(series) if bins is None else check_positive_int(bins, "bins")
     weights = _weights(series, bins)
     values = np.empty(0)
-    # Evaluate one lag beyond max_lag when possible, so that max_lag itself can be a minimum.
-    last = min(max_lag + 1, n - 2)
+    # Evaluate lags beyond max_lag when possible, so that max_lag itself can be a minimum.
+    last = min(max_lag + _AHEAD, n - 2)
     for start in range(0, last + 1, _LAG_CHUNK):
         lags = np.arange(start, min(start + _LAG_CHUNK, last + 1))
         values = np.concatenate([values, _ami_lags(weights, bins, lags)])
