@@ -292,7 +292,10 @@ class RobotBridge:
         """Listen and run the control loop until stopped; returns the counters."""
         ctx = zmq.Context()
         sock = ctx.socket(zmq.ROUTER)
-        sock.linger = 0
+        # a non-zero linger also makes libzmq let a reader finish the messages of a
+        # peer that disconnects instead of cutting its pipe (a cut in the middle of
+        # a multipart message aborts libzmq 4.3.5 on an assertion, fq.cpp:80)
+        sock.linger = 1000
         sock.router_mandatory = True
         sock.maxmsgsize = SOCKET_MAX_FRAME_BYTES
         auth = secure_server(sock, self.keys, ctx)
@@ -646,7 +649,10 @@ class SensorPublisher:
         """Listen and publish until stopped; returns the counters."""
         ctx = zmq.Context()
         sock = ctx.socket(zmq.ROUTER)
-        sock.linger = 0
+        # a non-zero linger also makes libzmq let a reader finish the messages of a
+        # peer that disconnects instead of cutting its pipe (a cut in the middle of
+        # a multipart message aborts libzmq 4.3.5 on an assertion, fq.cpp:80)
+        sock.linger = 1000
         sock.router_mandatory = True
         sock.maxmsgsize = SOCKET_MAX_FRAME_BYTES
         sock.sndhwm = 10_000
