@@ -81,8 +81,8 @@ RECORD_FIELDS: tuple[str, ...] = (
 _METRICS = ("median_ratio", "iqr_ratio", "wasserstein", "shape_distance", "crqa_RR",
             "crqa_DET", "crqa_L", "crqa_Lmax", "crqa_ENTR", "crqa_LAM", "crqa_TT")
 _NAN = float("nan")
-#: peak-to-peak below which a follower's channels count as exactly constant (no real
-#: sensor on a person reads the same value for a whole repetition)
+#: peak-to-peak below which a follower's channels count as exactly constant while the
+#: leader moves (no real sensor on a person reads one value through a whole movement)
 _STUCK = 1e-9
 
 
@@ -311,6 +311,14 @@ def _robot_from_meta(meta: Mapping[str, Any], path: str):
              "echoreo session, or add the robot YAML to meta"))
 
 
+def _leader_stream_name(pair: Mapping[str, Any]) -> str:
+    """Conventional name of a recorded leader sensor for a pair: ``leader_<site>_imu`` for
+    kind ``imu``, ``leader_head_pose`` for kind ``head_pose``."""
+    if pair.get("kind") == "head_pose":
+        return "leader_head_pose"
+    return f"leader_{pair.get('leader_site')}_imu"
+
+
 def read_session(path_or_sessionfile: Any, params: ScoringParams | None = None) -> SessionData:
     """Read what scoring needs from a session file.
 
@@ -374,7 +382,13 @@ def read_session(path_or_sessionfile: Any, params: ScoringParams | None = None) 
                 problems.append(Problem(f"meta 'pairs' entry {p!r} lacks stream, kind or "
                                         "leader_site; it is skipped", path))
                 continue
-            pairs.append(dict(p))
+            pair = dict(p)
+            if not pair.get("leader_stream"):
+                # a recorded leader sensor by naming convention (METHODS.md 2.2)
+                guess = _leader_stream_name(pair)
+                if guess in available:
+                    pair["leader_stream"] = guess
+            pairs.append(pair)
         streams: dict[str, StreamArrays] = {}
         desc = sf.streams().set_index("name")
         wanted = {p["stream"]: p["kind"] for p in pairs}
@@ -827,7 +841,8 @@ def score_data(data: SessionData, params: ScoringParams | None = None, *,
                         "not scored", file))
                     rec["flags"] = ["missing_data"]
                     continue
-                if float(np.ptp(F, axis=0).max()) <= _STUCK:
+                if (float(np.ptp(F, axis=0).max()) <= _STUCK
+                        and _rms(R) >= cfg.leader_still_limit(kind)):
                     problems.append(Problem(
                         f"{where}: the follower's {', '.join(KIND_CHANNELS[kind])} are "
                         "constant through the repetition (a stuck or disconnected sensor?); "
