@@ -110,9 +110,11 @@ def run(args: argparse.Namespace, console: Console) -> int:
         raise ExportError(f"--strip {strip}: the key-frame strip is a PNG, so the file name "
                           "must end in .png", hint="for example --strip keyframes.png")
     for path in (out, strip):
-        if not path.parent.is_dir():
-            raise ExportError(f"{path}: folder {path.parent} does not exist",
-                              hint="create it first or choose another place")
+        try:
+            path.parent.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise ExportError(f"{path}: cannot create the folder {path.parent} "
+                              f"({exc.strerror})", hint="choose a writable place") from exc
     for name, value, low in (("--fps", args.fps, 0.1), ("--max-frames", args.max_frames, 1),
                              ("--key-frames", args.key_frames, 1)):
         if not value >= low:

@@ -25,6 +25,9 @@ def test_preview_writes_gif_and_strip(tmp_path, capsys):
 def test_preview_bad_inputs(tmp_path, capsys):
     assert main(["preview", str(tmp_path / "none.yaml"), "--out", str(tmp_path / "a.gif")]) == 2
     assert main(["preview", HEAD, "--out", str(tmp_path / "a.mp4")]) == 2
-    assert main(["preview", HEAD, "--out", str(tmp_path / "no" / "a.gif")]) == 2
+    blocker = tmp_path / "a-file"
+    blocker.write_text("not a folder")
+    # a missing folder is created; a path through a file cannot be
+    assert main(["preview", HEAD, "--out", str(blocker / "a.gif")]) == 2
     err = capsys.readouterr().err
     assert "Traceback" not in err and err.count("error:") == 3
