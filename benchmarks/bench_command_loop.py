@@ -6,15 +6,20 @@ same time, a naive loop that calls ``time.sleep(period)`` after each tick's
 work, and prints both side by side. Each tick does the work a command loop
 does: look up the timeline's pose for the tick and build a command. With
 ``--recorder`` a recorder ingests 16 streams × 200 Hz in a second thread
-during the scheduler's run (the session's real load on the GIL). Goal: p99
+during the scheduler's run (the session's real load on the GIL). Options for
+the process: ``--realtime`` (SCHED_FIFO), ``--switch-interval 0.0002`` (GIL
+hand-over), ``--gc-freeze`` (full garbage collections skip the objects made
+at start-up, which otherwise stall every thread for tens of ms). Goal: p99
 lateness under 1 ms.
 
     python benchmarks/bench_command_loop.py [--seconds 60] [--rate 100] [--recorder]
+        [--realtime] [--switch-interval S] [--gc-freeze] [--skip-naive]
 """
 
 from __future__ import annotations
 
 import argparse
+import gc
 import os
 import sys
 import tempfile
@@ -93,6 +98,8 @@ def main() -> None:
     ap.add_argument("--recorder", action="store_true",
                     help="run a recorder at 16 x 200 Hz in a thread during the scheduled loop")
     ap.add_argument("--skip-naive", action="store_true")
+    ap.add_argument("--gc-freeze", action="store_true",
+                    help="gc.freeze() after set-up: full collections skip the start-up heap")
     ap.add_argument("--switch-interval", type=float, default=None, metavar="S",
                     help="sys.setswitchinterval for the run (CPython default 0.005 s)")
     ap.add_argument("--realtime", action="store_true",
@@ -106,7 +113,12 @@ def main() -> None:
           + (", recorder 16 x 200 Hz in a thread" if args.recorder else ""))
     if args.switch_interval is not None:
         sys.setswitchinterval(args.switch_interval)
-    print(f"GIL switch interval {sys.getswitchinterval() * 1e3:g} ms")
+    if args.gc_freeze:
+        import echoreo.runner.recorder  # noqa: F401  (import before freezing)
+        gc.collect()
+        gc.freeze()
+    print(f"GIL switch interval {sys.getswitchinterval() * 1e3:g} ms"
+          + (f", gc.freeze(): {gc.get_freeze_count()} objects frozen" if args.gc_freeze else ""))
     stop = threading.Event()
     loader = None
     with tempfile.TemporaryDirectory() as tmp:
