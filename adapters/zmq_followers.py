@@ -320,8 +320,10 @@ class ZmqFollowers(FollowerSource):
         with eng.lock:
             missing = [p for p in eng.peers if not (p.ready and eng.synced(p))]
             if missing and self.require_all:
-                why = "; ".join(f"{p.endpoint}: " + (p.auth_failure or "no answer")
-                                for p in missing)
+                why = "; ".join(f"{p.endpoint}: " + (
+                    p.auth_failure or (f"announced, but {p.sync.n_exchanges_} of 4 time "
+                                       "exchanges answered" if p.ready else "no answer"))
+                    for p in missing)
                 eng.close(bye=False)
                 raise RuntimeFault(f"sensor publisher(s) not reached within "
                                    f"{self.connect_timeout_s:g} s: {why}; is `echoreo publish` "
