@@ -599,14 +599,18 @@ def _steps(moves: pd.DataFrame) -> list[tuple[int, tuple[str, str], pd.DataFrame
             for _, grp in moves.groupby(block, sort=True)]
 
 
-def _leader_segments(prep: _Prepared) -> dict[str, list[np.ndarray]]:
-    """Leader 1-D reference per step and pair (where the leader moves), by kind."""
+def _leader_segments(prep: _Prepared) -> tuple[dict[str, list[np.ndarray]],
+                                                 dict[str, list[float]]]:
+    """Leader 1-D reference per step and pair where the leader moves, by kind, and the
+    lengths (samples) of the repetitions of those steps, by kind."""
     rate = prep.params.rate_hz
     cfg = prep.params.grade
     segs: dict[str, list[np.ndarray]] = {}
+    reps: dict[str, list[float]] = {}
     for _step, move, grp in _steps(prep.moves):
         a = max(_grid_index(float(grp["t_start"].min()), rate) - prep.k0, 0)
         b = min(_grid_index(float(grp["t_end"].max()), rate) - prep.k0, prep.n)
+        lengths = ((grp["t_end"] - grp["t_start"]).to_numpy(float) * rate).tolist()
         for pd_ in prep.pairs:
             if pd_.ref is None or b - a < 3:
                 continue
@@ -617,20 +621,19 @@ def _leader_segments(prep: _Prepared) -> dict[str, list[np.ndarray]]:
             if _rms(r) < cfg.leader_still_limit(kind):
                 continue
             segs.setdefault(kind, []).append(r @ pd_.axes.get(move, np.eye(3)[0]))
-    return segs
-
-
-def _median_rep_samples(moves: pd.DataFrame, rate: float) -> float:
-    return float(np.median((moves["t_end"] - moves["t_start"]).to_numpy(float)) * rate)
+            reps.setdefault(kind, []).extend(lengths)
+    return segs, reps
 
 
 def _choose_for(prep: _Prepared) -> dict[str, EmbeddingChoice]:
+    """This session's choice per kind; the window cap uses the median length of the
+    repetitions in which that kind's leader site moves."""
     params = prep.params
-    segs = _leader_segments(prep)
-    rep = _median_rep_samples(prep.moves, params.rate_hz)
+    segs, reps = _leader_segments(prep)
     kinds = sorted({pd_.pair["kind"] for pd_ in prep.pairs})
     out = {}
     for kind in kinds:
+        rep = float(np.median(reps[kind])) if reps.get(kind) else None
         out[kind] = choose_embedding(kind, segs.get(kind, []), params, rep)
     return out
 
