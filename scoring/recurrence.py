@@ -266,7 +266,7 @@ class _LineCounter:
         return _popcount(words)
 
     def _count(self, dense: np.ndarray, a: int, b: int) -> None:
-        rows, words, stride = b - a, self.words, self.stride
+        rows, words = b - a, self.words
         packed = np.packbits(dense, axis=None, bitorder="little").view("<u8")
         size = packed.size
         left, right, t1, t2, t3, t4 = (w[:size] for w in self._w)
@@ -289,16 +289,47 @@ class _LineCounter:
         d_end = t2[:n_own]
         np.invert(right[2 * words : (rows + 2) * words], out=d_end)  # none down-right
         d_end &= diag
+        # Isolated points (lines of length 1) are only counted; longer lines are followed.
         work = t3[:n_own]
         np.bitwise_and(d_start, d_end, out=work)
         self.diag_hist[1] += self._popcount(work)
         np.invert(d_end, out=work)
         work &= d_start
-        starts = _bit_positions(work) + words * 64
-        np.invert(d_start, out=work)
-        work &= d_end
-        ends = _bit_positions(work) + words * 64
-        self._close_diagonals(starts, ends, a, b, stride)
+        self._follow_diagonals(dense.ravel(), _bit_positions(work) + words * 64, a, b)
+
+    def _follow_diagonals(self, flat: np.ndarray, starts: np.ndarray, a: int, b: int) -> None:
+        """Lengths of the diagonal lines starting in rows a..b-1 or carried into row a.
+
+        Every line is followed down-right one step per pass (all lines at once) until
+        its next cell is empty; a line still going at row b is carried to the next
+        block as its start row. Work is one look-up per line point.
+        """
+        n, stride = self.n, self.stride
+        carried = np.flatnonzero(self.open_start >= 0)
+        # Continuation cells at row a (dense row 1) of the lines carried in.
+        carried_pos = stride + (a + carried - n) + 1
+        pos = np.concatenate([carried_pos, starts])
+        row = pos // stride - 1 + a  # global row of the current cell
+        origin = np.concatenate([self.open_start[carried], row[carried.size :]])
+        self.open_start[carried] = -1
+        finished: list[np.ndarray] = []
+        while pos.size:
+            pos += stride + 1  # the next cell down-right
+            going = flat[pos]
+            ended = ~going
+            if ended.any():
+                finished.append(row[ended] - origin[ended] + 1)
+            row += 1
+            beyond = going & (row == b)  # continues in the next block
+            if beyond.any():
+                k = (pos[beyond] % stride) - 1 - row[beyond] + n
+                self.open_start[k] = origin[beyond]
+                going &= ~beyond
+            pos, row, origin = pos[going], row[going], origin[going]
+        if finished:
+            lengths = np.concatenate(finished)
+            self.diag_hist += np.bincount(lengths, minlength=self.diag_hist.size)[
+                : self.diag_hist.size]
 
     def _count_vertical(self, packed: np.ndarray, own: slice, t1: np.ndarray, t2: np.ndarray,
                         t3: np.ndarray, t4: np.ndarray) -> None:
@@ -336,36 +367,6 @@ class _LineCounter:
             _shift_down(eroded, s, t1, t2)
             spread |= t1
         self.vert_long_points += self._popcount(spread[own])
-
-    def _close_diagonals(self, starts: np.ndarray, ends: np.ndarray, a: int, b: int,
-                         stride: int) -> None:
-        """Pair line starts with ends along each diagonal, carrying open lines onward."""
-        if starts.size == 0 and ends.size == 0:
-            return
-        n = self.n
-        span = b - a + 1
-        pos = np.concatenate([starts, ends])
-        kind = np.concatenate([np.zeros(starts.size, np.int8), np.ones(ends.size, np.int8)])
-        row = pos // stride - 1 + a  # global row
-        diag = pos % stride - 1 - row + n
-        order = np.argsort(diag * span + (row - a), kind="stable")
-        kind, row, diag = kind[order], row[order], diag[order]
-        same_next = np.zeros(kind.size, dtype=bool)
-        same_next[:-1] = diag[1:] == diag[:-1]
-        # An end preceded (on its diagonal) by a start in this block closes that line.
-        paired_end = np.zeros(kind.size, dtype=bool)
-        paired_end[1:] = (kind[1:] == 1) & (kind[:-1] == 0) & same_next[:-1]
-        lengths = [row[paired_end] - row[np.flatnonzero(paired_end) - 1] + 1]
-        carried_end = (kind == 1) & ~paired_end
-        k_end = diag[carried_end]
-        lengths.append(row[carried_end] - self.open_start[k_end] + 1)
-        self.open_start[k_end] = -1
-        open_new = (kind == 0) & ~np.concatenate([paired_end[1:], [False]])
-        self.open_start[diag[open_new]] = row[open_new]
-        all_lengths = np.concatenate(lengths)
-        if all_lengths.size:
-            self.diag_hist += np.bincount(all_lengths, minlength=self.diag_hist.size)[
-                : self.diag_hist.size]
 
 
 def _popcount(words: np.ndarray) -> int:
