@@ -9,6 +9,11 @@ band, flags) followed by the problems found. ``--json`` prints instead one
 JSON array of score records (METHODS.md 3.5); ``--csv FILE`` also writes the
 records as CSV.
 
+Sessions are scored in parallel on the local cores (``--workers``), or on a
+Dask distributed scheduler (``--cluster ADDRESS``); results are identical to
+the serial run, and each worker opens its own session file, so the command
+never holds more than the score records of the study in memory.
+
 Exit status: 0 when every session was scored; 2 when a session could not be
 read or scored at all (the others are still scored and written), or no
 session file was found.
@@ -26,7 +31,7 @@ from rich.console import Console
 from rich.markup import escape
 from rich.table import Table
 
-from echoreo.errors import InputError, Problem
+from echoreo.errors import Problem
 from echoreo.sessionfile import to_json, write_scores
 
 __all__ = ["add_arguments", "collect_paths", "run"]
@@ -45,6 +50,11 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="analysis rate (default 50 Hz)")
     parser.add_argument("--cutoff", type=float, default=None, metavar="HZ",
                         help="low-pass cutoff, -3 dB of the dual-pass filter (default 8 Hz)")
+    parser.add_argument("--workers", type=int, default=None, metavar="N",
+                        help="worker processes (default: the available cores; 1 = serial)")
+    parser.add_argument("--cluster", default=None, metavar="ADDRESS",
+                        help="score on a Dask distributed scheduler, e.g. tcp://127.0.0.1:8786 "
+                             "(needs the dask extra)")
 
 
 def collect_paths(args: list[str]) -> tuple[list[Path], list[Problem]]:
@@ -80,6 +90,16 @@ def collect_paths(args: list[str]) -> tuple[list[Path], list[Problem]]:
                 seen.add(key)
                 paths.append(f)
     return paths, problems
+
+
+def _score_and_write(path: Path, params: Any, write: bool) -> Any:
+    """Score one session and store its scores in it (runs in a worker process)."""
+    from echoreo.scoring.session_scores import score_session
+
+    scores = score_session(path, params)
+    if write:
+        write_scores(path, scores.records)
+    return scores
 
 
 def _fmt(x: Any, spec: str) -> str:
@@ -127,7 +147,7 @@ def run(args: argparse.Namespace, console: Console) -> int:
     import pandas as pd
 
     from echoreo.scoring.params import ScoringParams, combine_choices
-    from echoreo.scoring.session_scores import RECORD_FIELDS, score_session, session_embedding
+    from echoreo.scoring.session_scores import RECORD_FIELDS, session_embedding
 
     err = Console(stderr=True, highlight=False)
     paths, problems = collect_paths(args.sessions)
@@ -143,26 +163,36 @@ def run(args: argparse.Namespace, console: Console) -> int:
     params = dataclasses.replace(ScoringParams(), **changes) if changes else ScoringParams()
     status = 0 if not problems else 2
 
+    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn
+
+    from echoreo.scoring.parallel import map_sessions
+
+    def mapped(label, func, items, **kwargs):
+        with Progress(TextColumn(label), BarColumn(), MofNCompleteColumn(), console=err,
+                      transient=True, disable=args.json or len(items) < 2) as bar:
+            task = bar.add_task(label, total=len(items))
+            return map_sessions(func, items, workers=args.workers, cluster=args.cluster,
+                                progress=lambda d, t: bar.update(task, completed=d), **kwargs)
+
     # 1. the study's embedding, chosen across every readable session
     choices, usable = [], []
-    for p in paths:
-        try:
-            choices.append(session_embedding(p, params))
+    for p, (state, value) in zip(paths, mapped("choosing embedding", session_embedding, paths,
+                                                params=params), strict=True):
+        if state == "ok":
+            choices.append(value)
             usable.append(p)
-        except InputError as exc:
-            err.print(f"[bold red]error:[/] {escape(str(exc))}", soft_wrap=True)
+        else:
+            err.print(f"[bold red]error:[/] {escape(value)}", soft_wrap=True)
             status = 2
     study_params = params.with_embedding(combine_choices(choices, params))
 
-    # 2. every session with it
+    # 2. every session with it; each worker writes its own session's scores
     all_records = []
-    for p in usable:
-        try:
-            scores = score_session(p, study_params)
-            if not args.no_write:
-                write_scores(p, scores.records)
-        except InputError as exc:
-            err.print(f"[bold red]error:[/] {escape(str(exc))}", soft_wrap=True)
+    results = mapped("scoring", _score_and_write, usable, params=study_params,
+                     write=not args.no_write)
+    for state, scores in results:
+        if state != "ok":
+            err.print(f"[bold red]error:[/] {escape(scores)}", soft_wrap=True)
             status = 2
             continue
         all_records.append(scores.records)
