@@ -11,7 +11,7 @@ silences (``gap``, with a second ``gap`` event when the stream resumes),
 repeated or reordered sequence numbers (``out_of_order``), undecodable
 messages (``malformed``, aggregated per publisher with a count), a publisher
 that restarted (new boot id: its clock estimate and sequence expectations are
-reset, noted on the ``gap`` end event).
+reset; a ``fault`` event says so, and the ``gap`` end event notes it).
 """
 
 from __future__ import annotations
@@ -125,6 +125,10 @@ class _FollowerEngine(LinkEngine):
                 st = self.streams[name]
                 st.expected = None
                 st.restarted = True
+                self.events.append((t_rx, "fault", name, {
+                    "endpoint": peer.endpoint, "reason": "publisher restarted (new boot id): "
+                    "its clock estimate and sequence numbers start afresh",
+                    "old_boot": peer.boot, "new_boot": m["boot"]}))
         peer.boot = m["boot"]
         names = self.by_peer.setdefault(peer.index, [])
         for s in m["streams"]:

@@ -120,6 +120,9 @@ def test_restarted_publisher_gap_reported_stream_resumes(spawn, tmp_path):
         ends = [e for e in events if e[1] == "gap" and e[3]["phase"] == "end"]
         assert [e[2] for e in ends] == ["right_wrist_imu"]
         assert ends[0][3]["publisher_restarted"] is True
+        restarts = [e for e in events if e[1] == "fault"]
+        assert [e[2] for e in restarts] == ["right_wrist_imu"]
+        assert "restarted" in restarts[0][3]["reason"]
         # the restarted run's samples all arrived, in order, after the gap
         second = read_log(log_a2)["right_wrist_imu"]
         assert got["right_wrist_imu"][-len(second):] == second
