@@ -45,6 +45,7 @@ def map_sessions(
     workers: int | None = None,
     cluster: str | None = None,
     progress: Callable[[int, int], None] | None = None,
+    connect_timeout_s: float = 10.0,
     **kwargs: Any,
 ) -> list[tuple[str, Any]]:
     """Apply ``func(path, **kwargs)`` to every session, in parallel.
@@ -63,6 +64,8 @@ def map_sessions(
         the ``dask`` extra. Overrides ``workers``.
     progress : callable, optional
         Called as ``progress(done, total)`` after each finished session.
+    connect_timeout_s : float
+        How long to try reaching the Dask scheduler, s.
     **kwargs
         Passed to ``func`` (study parameters).
 
@@ -85,7 +88,7 @@ def map_sessions(
             progress(done, total)
 
     if cluster is not None:
-        return _map_dask(func, paths, cluster, kwargs, tick)
+        return _map_dask(func, paths, cluster, kwargs, tick, connect_timeout_s)
     n = default_workers() if workers is None else int(workers)
     if n < 1:
         raise ScoringInputError(f"workers must be at least 1; got {workers}")
@@ -103,7 +106,7 @@ def map_sessions(
 
 
 def _map_dask(func: Callable, paths: Iterable[Any], address: str, kwargs: dict,
-              tick: Callable[[], None]) -> list[tuple[str, Any]]:
+              tick: Callable[[], None], timeout_s: float) -> list[tuple[str, Any]]:
     try:
         from distributed import Client
         from distributed import as_completed as dask_completed
@@ -113,7 +116,7 @@ def _map_dask(func: Callable, paths: Iterable[Any], address: str, kwargs: dict,
             hint="pip install 'echoreo[dask]'") from exc
     paths = list(paths)
     try:
-        client = Client(address, timeout=10)
+        client = Client(address, timeout=timeout_s)
     except (OSError, TimeoutError) as exc:
         raise ScoringInputError(
             f"cannot reach the Dask scheduler at {address}: {exc}",

@@ -51,4 +51,5 @@ def test_unreachable_cluster_is_a_clear_error(paths):
     from echoreo.errors import ScoringInputError
 
     with pytest.raises(ScoringInputError, match="cannot reach the Dask scheduler"):
-        map_sessions(score_session, paths[:1], cluster="tcp://127.0.0.1:9")
+        map_sessions(score_session, paths[:1], cluster="tcp://127.0.0.1:9",
+                     connect_timeout_s=1.0)
