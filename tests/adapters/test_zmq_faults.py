@@ -47,7 +47,7 @@ def test_bridge_survives_malformed_messages(spawn):
     rng = np.random.default_rng(11)
     ctx = zmq.Context()
     sock = ctx.socket(zmq.DEALER)
-    sock.linger = 0
+    sock.linger = 5000  # every message queued must reach the bridge before close returns
     sock.connect(bridge.endpoint)
     try:
         for k in range(1000):
