@@ -159,7 +159,7 @@ def run_demo(out: str | Path = "echoreo-demo", *, participants: int = 12, seed: 
     """
     from echoreo.scoring.parallel import default_workers
     from echoreo.scoring.report import ReportData, write_report
-    from echoreo.scoring.session_scores import score_study
+    from echoreo.scoring.study_report import score_with_details
     from echoreo.sessionfile import SessionFile, write_scores
 
     out = _prepare(Path(out))
@@ -185,20 +185,8 @@ def run_demo(out: str | Path = "echoreo-demo", *, participants: int = 12, seed: 
     timings["simulate"] = time.perf_counter() - t0
 
     t0 = time.perf_counter()
-    done = [0]
-
-    def counted(fn, items):
-        for item in (pool.map(fn, items) if pool is not None else map(fn, items)):
-            done[0] += 1
-            tick("score", done[0], 2 * len(paths))
-            yield item
-
-    pool = ProcessPoolExecutor(max_workers=n_workers) if n_workers > 1 else None
-    try:
-        study = score_study(paths, details=True, map_fn=counted)
-    finally:
-        if pool is not None:
-            pool.shutdown()
+    study, details = score_with_details(paths, workers=n_workers,
+                                        progress=lambda d, t: tick("score", d, t))
     for s, path in zip(study.sessions, paths, strict=True):
         write_scores(path, s.records)
     timings["score"] = time.perf_counter() - t0
@@ -206,12 +194,6 @@ def run_demo(out: str | Path = "echoreo-demo", *, participants: int = 12, seed: 
     t0 = time.perf_counter()
     profile_of = {m.code: m.profile for m in cast}
     records = study.records.copy()
-    details: dict[int, dict] = {}
-    offset = 0
-    for s in study.sessions:
-        for j, d in enumerate(s.details or []):
-            details[offset + j] = d
-        offset += len(s.records)
     sessions_info = []
     for path in paths:
         with SessionFile(path) as sf:

@@ -32,7 +32,7 @@ from echoreo.scoring.parallel import default_workers
 from echoreo.scoring.report import ReportData, write_report
 from echoreo.sessionfile import SessionFile
 
-__all__ = ["StudyReport", "gather_sessions", "study_report"]
+__all__ = ["StudyReport", "gather_sessions", "score_with_details", "study_report"]
 
 
 @dataclass
@@ -118,6 +118,52 @@ def _majority(sessions: list[dict], notes: list[str]) -> list[dict]:
     return keep
 
 
+def score_with_details(paths: list[Path], *, workers: int | None = None,
+                       progress: Callable[[int, int], None] | None = None):
+    """Score sessions as one study on a process pool, keeping the plot details.
+
+    Parameters
+    ----------
+    paths : list of Path
+    workers : int, optional
+        Worker processes (default: the available cores; 1 = in this process).
+    progress : callable, optional
+        ``progress(done, total)`` over both passes of :func:`score_study`
+        (embedding choice, then scoring), ``total = 2 * len(paths)``.
+
+    Returns
+    -------
+    (StudyScores, dict of int to dict)
+        The study's scores, and the details of each record keyed by its
+        index in ``study.records``.
+    """
+    from echoreo.scoring.session_scores import score_study
+
+    n = min(workers or default_workers(), max(len(paths), 1))
+    done = [0]
+    pool = ProcessPoolExecutor(max_workers=n) if n > 1 else None
+
+    def mapper(fn, items):
+        for value in (pool.map(fn, list(items)) if pool is not None else map(fn, items)):
+            done[0] += 1
+            if progress is not None:
+                progress(done[0], 2 * len(paths))
+            yield value
+
+    try:
+        study = score_study(paths, details=True, map_fn=mapper)
+    finally:
+        if pool is not None:
+            pool.shutdown()
+    details: dict[int, dict] = {}
+    offset = 0
+    for session in study.sessions:
+        for j, d in enumerate(session.details or []):
+            details[offset + j] = d
+        offset += len(session.records)
+    return study, details
+
+
 def study_report(paths: Iterable[str | Path], out: str | Path, *,
                  figures_dir: str | Path | None = None, figure_format: str = "png",
                  workers: int | None = None, title: str | None = None,
@@ -144,8 +190,6 @@ def study_report(paths: Iterable[str | Path], out: str | Path, *,
     -------
     StudyReport
     """
-    from echoreo.scoring.session_scores import score_study
-
     sessions, notes = gather_sessions(paths)
     sessions = _majority(sessions, notes)
     if not sessions:
@@ -158,30 +202,7 @@ def study_report(paths: Iterable[str | Path], out: str | Path, *,
         if not s["scored"]:
             notes.append(f"{s['file']}: had no scores yet; scored now for this report")
     paths_used = [s["path"] for s in sessions]
-    n = min(workers or default_workers(), len(paths_used))
-    done = [0]
-
-    def mapper(fn, items):
-        items = list(items)
-        it = pool.map(fn, items) if pool is not None else map(fn, items)
-        for value in it:
-            done[0] += 1
-            if progress is not None:
-                progress(done[0], 2 * len(paths_used))
-            yield value
-
-    pool = ProcessPoolExecutor(max_workers=n) if n > 1 else None
-    try:
-        study = score_study(paths_used, details=True, map_fn=mapper)
-    finally:
-        if pool is not None:
-            pool.shutdown()
-    details: dict[int, dict] = {}
-    offset = 0
-    for s in study.sessions:
-        for j, d in enumerate(s.details or []):
-            details[offset + j] = d
-        offset += len(s.records)
+    study, details = score_with_details(paths_used, workers=workers, progress=progress)
     notes.extend(f"{p.location()}: {p.message}" for p in study.problems)
     info = [{k: v for k, v in s.items() if k != "path"} for s in sessions]
     name = title or next((s["study"] for s in sessions if s["study"]), "echoreo study")
