@@ -501,7 +501,7 @@ class SessionFile:
         return list(_loads(rows[0][0], []))
 
     def read_stream(self, name: str, *, start: float | None = None, end: float | None = None,
-                    order: str = "time") -> pd.DataFrame:
+                    order: str = "time", channels: Iterable[str] | None = None) -> pd.DataFrame:
         """Samples of one stream.
 
         Parameters
@@ -513,6 +513,8 @@ class SessionFile:
         order : {"time", "arrival"}
             ``"time"`` sorts by session time (ties in arrival order); ``"arrival"``
             keeps the order the recorder received the samples.
+        channels : iterable of str, optional
+            Read only these channels (default: all, in the stream's order).
 
         Returns
         -------
@@ -521,7 +523,17 @@ class SessionFile:
             ``t_dev_ns`` (int64 ns, the device's own clock), ``seq`` (int64), then
             one float64 column per channel in the stream's units (missing → NaN).
         """
-        channels = self._channels(name)
+        known = self._channels(name)
+        if channels is None:
+            channels = known
+        else:
+            channels = list(channels)
+            unknown = [c for c in channels if c not in known]
+            if unknown:
+                raise SessionFileError(Problem(
+                    f"stream {name!r} has no channel(s) {', '.join(map(repr, unknown))} "
+                    f"(channels: {', '.join(known)})", str(self.path),
+                    hint="use the channel names listed by `echoreo sessions`"))
         where, params = [], []
         if start is not None:
             where.append("t_ns >= ?")
@@ -541,8 +553,11 @@ class SessionFile:
         ints = np.zeros((n, 3), dtype=np.int64)
         vals = np.empty((n, len(channels)), dtype=np.float64)
         if n:
-            ints[:] = [r[:3] for r in rows]
-            vals[:] = np.array([r[3:] for r in rows], dtype=np.float64)  # None -> nan
+            # One object array, then typed column blocks: several times faster than
+            # converting row by row; NULL (None) becomes NaN in the float cast.
+            table = np.array(rows, dtype=object)
+            ints[:] = table[:, :3].astype(np.int64)
+            vals[:] = table[:, 3:].astype(np.float64)
         data: dict[str, np.ndarray] = {
             "t": ints[:, 0] * 1e-9,
             "t_ns": ints[:, 0],

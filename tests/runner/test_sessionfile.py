@@ -164,3 +164,20 @@ def test_reserved_and_duplicate_channels():
         stream_table_ddl("s", ["t_ns"])
     with pytest.raises(SessionFileError, match="more than once"):
         stream_table_ddl("s", ["a", "A"])
+
+
+def test_channel_selection_and_exact_large_device_times(tmp_path):
+    """Reading a subset of channels; device times of an epoch clock (~1.7e18 ns, beyond
+    float64's 2**53 exact range) come back exact as int64."""
+    f = tmp_path / "s.sqlite"
+    _make(f)
+    big = 1_764_579_600_123_456_789
+    with sqlite3.connect(f) as conn:
+        conn.execute(f"UPDATE {stream_table('head_pose')} SET t_dev_ns = ? + seq", (big,))
+    with SessionFile(f) as sf:
+        df = sf.read_stream("head_pose", channels=["roll"])
+        assert list(df.columns) == ["t", "t_ns", "t_dev_ns", "seq", "roll"]
+        assert df["t_dev_ns"].tolist() == [big + i for i in range(30)]
+        np.testing.assert_allclose(df["roll"], -0.1 * np.arange(30))
+        with pytest.raises(SessionFileError, match="no channel"):
+            sf.read_stream("head_pose", channels=["yaw", "heading"])
