@@ -399,11 +399,18 @@ def read_session(path_or_sessionfile: Any, params: ScoringParams | None = None) 
                     f"stream {name!r} is paired in meta 'pairs' but was not recorded "
                     "(no such stream); its repetitions are flagged missing_data", path))
                 continue
-            df = sf.read_stream(name)
-            channels = [c for c in desc.loc[name, "channels"]]
-            units = list(desc.loc[name, "units"] or [])
+            all_channels = [c for c in desc.loc[name, "channels"]]
+            all_units = list(desc.loc[name, "units"] or [])
+            unit_of = dict(zip(all_channels, all_units, strict=False))
+            needed = KIND_CHANNELS.get(str(desc.loc[name, "kind"] or kind), ())
+            # Read only the compared channels when the stream has them all (half of an
+            # IMU's); otherwise everything, so the missing-channel problem is reported later.
+            channels = ([c for c in all_channels if c in needed]
+                        if needed and all(c in all_channels for c in needed) else all_channels)
+            units = [unit_of.get(c, "") for c in channels]
+            df = sf.read_stream(name, channels=channels)
             data = df[channels].to_numpy(float) if channels else np.zeros((len(df), 0))
-            for j, u in enumerate(units[: len(channels)]):
+            for j, u in enumerate(units):
                 if isinstance(u, str) and u.strip().lower() in ("deg", "degree", "degrees",
                                                                 "deg/s"):
                     data[:, j] = np.deg2rad(data[:, j])
