@@ -7,8 +7,7 @@ registers its own names with a one-line entry.
 
 from __future__ import annotations
 
-import importlib
-from typing import Any
+from echoreo._lazy import lazy_exports
 
 #: public name -> submodule of this package that defines it
 _EXPORTS: dict[str, str] = {
@@ -50,15 +49,4 @@ _EXPORTS: dict[str, str] = {
 __all__ = sorted(_EXPORTS)
 
 
-def __getattr__(name: str) -> Any:
-    try:
-        module = _EXPORTS[name]
-    except KeyError:
-        raise AttributeError(f"module {__name__!r} has no attribute {name!r}") from None
-    value = getattr(importlib.import_module(f"{__name__}.{module}"), name)
-    globals()[name] = value
-    return value
-
-
-def __dir__() -> list[str]:
-    return sorted(set(globals()) | set(_EXPORTS))
+__getattr__, __dir__ = lazy_exports(__name__, _EXPORTS)

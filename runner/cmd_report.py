@@ -22,7 +22,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def run(args: argparse.Namespace, console: Console) -> int:
-    from echoreo.scoring.study_report import study_report
+    from echoreo.scoring.studies import study_report
 
     with Progress(TextColumn("scoring"), BarColumn(), MofNCompleteColumn(),
                   console=console, transient=True) as bar:

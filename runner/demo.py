@@ -159,7 +159,7 @@ def run_demo(out: str | Path = "echoreo-demo", *, participants: int = 12, seed: 
     """
     from echoreo.scoring.parallel import default_workers
     from echoreo.scoring.report import ReportData, write_report
-    from echoreo.scoring.study_report import score_with_details
+    from echoreo.scoring.studies import score_with_details
     from echoreo.sessionfile import SessionFile, write_scores
 
     out = _prepare(Path(out))
