@@ -33,7 +33,7 @@ from echoreo import __version__
 from echoreo.errors import ExportError, Problem
 from echoreo.scoring.cohort import flagged_participants, grade_reliability, participant_summary
 
-__all__ = ["SAFETY_TEXT", "ReportData", "build_report", "write_report"]
+__all__ = ["SAFETY_TEXT", "ReportData", "build_report", "check_writable", "write_report"]
 
 #: The caution printed in every report (and shown by the README and live view).
 SAFETY_TEXT = (
@@ -430,6 +430,28 @@ def build_report(data: ReportData, *, figures_dir: str | Path | None = None,
             + "\n".join(body) + _SELF_CHECK + "</body></html>")
 
 
+def check_writable(out: str | Path) -> Path:
+    """Make sure the report file ``out`` can be written (parent folders created).
+
+    Raises
+    ------
+    ExportError
+        The folder cannot be created or the file cannot be written.
+    """
+    out = Path(out)
+    existed = out.exists()
+    try:
+        out.parent.mkdir(parents=True, exist_ok=True)
+        with open(out, "a", encoding="utf-8"):
+            pass
+        if not existed:
+            out.unlink()  # a probe only: leave no empty report behind
+    except OSError as exc:
+        raise ExportError(Problem(f"cannot write the report: {exc.strerror}", str(out),
+                                  hint="choose a writable path with --out")) from exc
+    return out
+
+
 def write_report(data: ReportData, out: str | Path, **kwargs: Any) -> Path:
     """Write :func:`build_report` to ``out`` (parent folders created).
 
@@ -438,10 +460,9 @@ def write_report(data: ReportData, out: str | Path, **kwargs: Any) -> Path:
     ExportError
         The file cannot be written.
     """
-    out = Path(out)
+    out = check_writable(out)
     text = build_report(data, **kwargs)
     try:
-        out.parent.mkdir(parents=True, exist_ok=True)
         out.write_text(text, encoding="utf-8")
     except OSError as exc:
         raise ExportError(Problem(f"cannot write the report: {exc.strerror}", str(out),

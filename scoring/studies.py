@@ -29,7 +29,7 @@ import numpy as np
 
 from echoreo.errors import ScoringInputError, SessionFileError
 from echoreo.scoring.parallel import default_workers
-from echoreo.scoring.report import ReportData, write_report
+from echoreo.scoring.report import ReportData, check_writable, write_report
 from echoreo.sessionfile import SessionFile
 
 __all__ = ["StudyReport", "gather_sessions", "score_with_details", "study_report"]
@@ -190,6 +190,7 @@ def study_report(paths: Iterable[str | Path], out: str | Path, *,
     -------
     StudyReport
     """
+    check_writable(out)  # before the scoring, not after it
     sessions, notes = gather_sessions(paths)
     sessions = _majority(sessions, notes)
     if not sessions:

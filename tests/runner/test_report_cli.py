@@ -48,3 +48,18 @@ def test_report_of_nothing_is_a_clear_error(tmp_path):
                           capture_output=True, text=True, timeout=120, check=False)
     assert proc.returncode == 2 and "no session files to report on" in proc.stderr
     assert "Traceback" not in proc.stderr
+
+
+def test_report_to_an_unwritable_place_is_a_clear_error(demo_study, tmp_path):
+    """--out under a regular file cannot be created: exit 2, located message, no traceback,
+    and the session files are untouched."""
+    sessions = demo_study["out"] / "sessions"
+    blocker = tmp_path / "a-file"
+    blocker.write_text("not a folder")
+    before = {p.name: p.stat().st_size for p in sessions.glob("*.sqlite")}
+    proc = subprocess.run([sys.executable, "-m", "echoreo.runner.cli", "report", str(sessions),
+                           "--out", str(blocker / "report.html")],
+                          capture_output=True, text=True, timeout=300, check=False)
+    assert proc.returncode == 2, proc.stderr[-2000:]
+    assert "cannot write the report" in proc.stderr and "Traceback" not in proc.stderr
+    assert {p.name: p.stat().st_size for p in sessions.glob("*.sqlite")} == before
