@@ -69,6 +69,7 @@ __all__ = [
     "SessionFile",
     "check_name",
     "create_schema",
+    "find_sessions",
     "make_self_contained",
     "process_identity",
     "quote_ident",
@@ -710,6 +711,41 @@ def _loads(text: Any, default: Any) -> Any:
 
 
 _SCORE_KEYS = ("stream", "move", "step", "repetition", "grade", "band")
+
+
+def find_sessions(args: Iterable[str | Path]) -> tuple[list[Path], list[Problem]]:
+    """Session files named by the arguments: files as given, folders expanded to ``*.sqlite``.
+
+    Returns
+    -------
+    (paths, problems)
+        Paths in argument order (sorted within a folder, duplicates removed),
+        and a problem per argument that is neither a file nor a folder with
+        session files.
+    """
+    paths: list[Path] = []
+    problems: list[Problem] = []
+    seen = set()
+    for a in args:
+        p = Path(a)
+        if p.is_dir():
+            found = sorted(p.glob("*.sqlite"))
+            if not found:
+                problems.append(Problem("no session files (*.sqlite) in this folder", str(p),
+                                        hint="give a folder written by `echoreo session`"))
+            items = found
+        elif p.exists():
+            items = [p]
+        else:
+            problems.append(Problem("no such file or folder", str(p),
+                                    hint="check the path"))
+            items = []
+        for f in items:
+            key = f.resolve()
+            if key not in seen:
+                seen.add(key)
+                paths.append(f)
+    return paths, problems
 
 
 def write_scores(path: str | Path, records: pd.DataFrame | Iterable[Mapping[str, Any]], *,

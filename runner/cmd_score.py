@@ -31,10 +31,9 @@ from rich.console import Console
 from rich.markup import escape
 from rich.table import Table
 
-from echoreo.errors import Problem
-from echoreo.sessionfile import to_json, write_scores
+from echoreo.sessionfile import find_sessions, to_json, write_scores
 
-__all__ = ["add_arguments", "collect_paths", "run"]
+__all__ = ["add_arguments", "run"]
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -55,41 +54,6 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--cluster", default=None, metavar="ADDRESS",
                         help="score on a Dask distributed scheduler, e.g. tcp://127.0.0.1:8786 "
                              "(needs the dask extra)")
-
-
-def collect_paths(args: list[str]) -> tuple[list[Path], list[Problem]]:
-    """Session files named by the arguments: files as given, folders expanded to ``*.sqlite``.
-
-    Returns
-    -------
-    (paths, problems)
-        Paths in argument order (sorted within a folder, duplicates removed),
-        and a problem per argument that is neither a file nor a folder with
-        session files.
-    """
-    paths: list[Path] = []
-    problems: list[Problem] = []
-    seen = set()
-    for a in args:
-        p = Path(a)
-        if p.is_dir():
-            found = sorted(p.glob("*.sqlite"))
-            if not found:
-                problems.append(Problem("no session files (*.sqlite) in this folder", str(p),
-                                        hint="give a folder written by `echoreo session`"))
-            items = found
-        elif p.exists():
-            items = [p]
-        else:
-            problems.append(Problem("no such file or folder", str(p),
-                                    hint="check the path"))
-            items = []
-        for f in items:
-            key = f.resolve()
-            if key not in seen:
-                seen.add(key)
-                paths.append(f)
-    return paths, problems
 
 
 def _score_and_write(path: Path, params: Any, write: bool) -> Any:
@@ -150,7 +114,7 @@ def run(args: argparse.Namespace, console: Console) -> int:
     from echoreo.scoring.session_scores import RECORD_FIELDS, session_embedding
 
     err = Console(stderr=True, highlight=False)
-    paths, problems = collect_paths(args.sessions)
+    paths, problems = find_sessions(args.sessions)
     for p in problems:
         err.print(f"[bold red]error:[/] {escape(str(p))}", soft_wrap=True)
     if not paths:

@@ -46,7 +46,7 @@ import pandas as pd
 
 from echoreo import __version__
 from echoreo.errors import ExportError, Problem
-from echoreo.sessionfile import SessionFile
+from echoreo.sessionfile import SessionFile, find_sessions
 
 __all__ = ["BIDS_VERSION", "export_bids", "export_csv", "session_files"]
 
@@ -55,26 +55,20 @@ BIDS_VERSION = "1.10.0"
 
 
 def session_files(paths: Iterable[str | Path]) -> list[Path]:
-    """Expand folders into the session files they hold (``*.sqlite``), sorted.
+    """Session files named by ``paths`` (folders expanded, see ``find_sessions``).
 
     Raises
     ------
     ExportError
-        A path does not exist, or no session file was found.
+        A path does not exist or a folder holds no session file, or nothing was found.
     """
-    out: list[Path] = []
-    for p in map(Path, paths):
-        if p.is_dir():
-            out.extend(sorted(p.glob("*.sqlite")))
-        elif p.exists():
-            out.append(p)
-        else:
-            raise ExportError(Problem("no such file or folder", str(p),
-                                      hint="give session files (.sqlite) or a folder of them"))
-    if not out:
+    found, problems = find_sessions(paths)
+    if problems:
+        raise ExportError(problems)
+    if not found:
         raise ExportError("no session files found in the given paths",
                           hint="session files end in .sqlite; `echoreo sessions FOLDER` lists them")
-    return out
+    return found
 
 
 def _prepare_out(out: str | Path) -> Path:

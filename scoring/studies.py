@@ -30,7 +30,7 @@ import numpy as np
 from echoreo.errors import ScoringInputError, SessionFileError
 from echoreo.scoring.parallel import default_workers
 from echoreo.scoring.report import ReportData, check_writable, write_report
-from echoreo.sessionfile import SessionFile
+from echoreo.sessionfile import SessionFile, find_sessions
 
 __all__ = ["StudyReport", "gather_sessions", "score_with_details", "study_report"]
 
@@ -71,18 +71,8 @@ def gather_sessions(paths: Iterable[str | Path]) -> tuple[list[dict], list[str]]
     ScoringInputError
         No path names an existing file or folder, or no session file was found.
     """
-    files: list[Path] = []
-    notes: list[str] = []
-    for p in map(Path, paths):
-        if p.is_dir():
-            found = sorted(p.glob("*.sqlite"))
-            if not found:
-                notes.append(f"{p}: folder holds no session files (*.sqlite)")
-            files.extend(found)
-        elif p.exists():
-            files.append(p)
-        else:
-            notes.append(f"{p}: no such file or folder")
+    files, problems = find_sessions(paths)
+    notes = [f"{p.file}: {p.message}" for p in problems]
     if not files:
         raise ScoringInputError("no session files to report on",
                                 hint="give session files (.sqlite) or a folder of them; "
