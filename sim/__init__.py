@@ -2,9 +2,7 @@
 
 Imports numpy, scipy, pyyaml and the echoreo core only.
 
-Public names are listed in ``_EXPORTS`` (name -> defining submodule) and
-imported on first use, so importing the package stays cheap and each part
-registers its own names with a one-line entry.
+Public names: ``_EXPORTS`` below, imported on first use (``echoreo._lazy``).
 """
 
 from __future__ import annotations

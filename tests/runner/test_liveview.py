@@ -23,8 +23,7 @@ from echoreo.runner.liveview import (
 )
 from echoreo.sessionfile import SessionFile
 
-TINY = (Path(__file__).with_name("test_session.py").read_text(encoding="utf-8")
-        .split('TINY = """\\\n', 1)[1].split('"""', 1)[0])
+TINY = (Path(__file__).parent / "data" / "tiny-raise.yaml").read_text(encoding="utf-8")
 
 
 def test_status_drawing_shows_everything():

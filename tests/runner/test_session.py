@@ -26,29 +26,7 @@ from echoreo.runner.program import build_program
 from echoreo.runner.session import START_DELAY_S, RepetitionEnd, run_session
 from echoreo.sessionfile import SessionFile
 
-TINY = """\
-format: echoreo-choreography/1
-name: tiny-raise
-robot: torso-e1
-unit: deg
-poses:
-  rest: {}
-  up: {right_shoulder_flexion: 40, left_shoulder_abduction: 25}
-moves:
-  raise:
-    interpolation: minimum-jerk
-    keyframes:
-      - {at: 0.0, pose: rest}
-      - {at: 0.6, pose: up}
-      - {at: 1.2, pose: rest}
-sequence:
-  - rest: 0.3
-    cue: Ready
-  - move: raise
-    repeat: 2
-    count: true
-  - rest: 0.3
-"""
+TINY = (Path(__file__).parent / "data" / "tiny-raise.yaml").read_text(encoding="utf-8")
 
 PLAN = """\
 study: session-test

@@ -18,30 +18,7 @@ from pathlib import Path
 from echoreo.runner.session import run_session
 from echoreo.sessionfile import SessionFile
 
-#: the 3 s test choreography of test_session.py
-TINY = """\
-format: echoreo-choreography/1
-name: tiny-raise
-robot: torso-e1
-unit: deg
-poses:
-  rest: {}
-  up: {right_shoulder_flexion: 40, left_shoulder_abduction: 25}
-moves:
-  raise:
-    interpolation: minimum-jerk
-    keyframes:
-      - {at: 0.0, pose: rest}
-      - {at: 0.6, pose: up}
-      - {at: 1.2, pose: rest}
-sequence:
-  - rest: 0.3
-    cue: Ready
-  - move: raise
-    repeat: 2
-    count: true
-  - rest: 0.3
-"""
+TINY = (Path(__file__).parent / "data" / "tiny-raise.yaml").read_text(encoding="utf-8")
 
 START_S = 30.0  # bound on a peer's start-up (imports numpy, zmq, the simulator)
 
