@@ -113,6 +113,23 @@ def write_ready_file(path: str | Path, info: dict[str, Any]) -> None:
     tmp.replace(path)
 
 
+def _peer_socket(ctx: zmq.Context, keys: CurveKeys | None, *,
+                 sndhwm: int | None = None) -> tuple[zmq.Socket, Any]:
+    """The ROUTER socket a reference peer listens on, with CURVE when keys are given.
+
+    A non-zero linger also makes libzmq let a reader finish the messages of a
+    peer that disconnects instead of cutting its pipe (a cut in the middle of a
+    multipart message aborts libzmq 4.3.5 on an assertion, fq.cpp:80).
+    """
+    sock = ctx.socket(zmq.ROUTER)
+    sock.linger = 1000
+    sock.router_mandatory = True
+    sock.maxmsgsize = SOCKET_MAX_FRAME_BYTES
+    if sndhwm is not None:
+        sock.sndhwm = sndhwm
+    return sock, secure_server(sock, keys, ctx)
+
+
 def _bind(sock: zmq.Socket, endpoint: str) -> str:
     try:
         sock.bind(endpoint)
@@ -291,14 +308,7 @@ class RobotBridge:
               on_ready: Callable[[str], None] | None = None) -> dict[str, int]:
         """Listen and run the control loop until stopped; returns the counters."""
         ctx = zmq.Context()
-        sock = ctx.socket(zmq.ROUTER)
-        # a non-zero linger also makes libzmq let a reader finish the messages of a
-        # peer that disconnects instead of cutting its pipe (a cut in the middle of
-        # a multipart message aborts libzmq 4.3.5 on an assertion, fq.cpp:80)
-        sock.linger = 1000
-        sock.router_mandatory = True
-        sock.maxmsgsize = SOCKET_MAX_FRAME_BYTES
-        auth = secure_server(sock, self.keys, ctx)
+        sock, auth = _peer_socket(ctx, self.keys)
         try:
             self.bound_endpoint = _bind(sock, self.endpoint)
             if ready_file:
@@ -648,15 +658,7 @@ class SensorPublisher:
               on_ready: Callable[[str], None] | None = None) -> dict[str, int]:
         """Listen and publish until stopped; returns the counters."""
         ctx = zmq.Context()
-        sock = ctx.socket(zmq.ROUTER)
-        # a non-zero linger also makes libzmq let a reader finish the messages of a
-        # peer that disconnects instead of cutting its pipe (a cut in the middle of
-        # a multipart message aborts libzmq 4.3.5 on an assertion, fq.cpp:80)
-        sock.linger = 1000
-        sock.router_mandatory = True
-        sock.maxmsgsize = SOCKET_MAX_FRAME_BYTES
-        sock.sndhwm = 10_000
-        auth = secure_server(sock, self.keys, ctx)
+        sock, auth = _peer_socket(ctx, self.keys, sndhwm=10_000)
         try:
             self.bound_endpoint = _bind(sock, self.endpoint)
             if ready_file:
