@@ -157,6 +157,7 @@ def run_demo(out: str | Path = "echoreo-demo", *, participants: int = 12, seed: 
     -------
     DemoResult
     """
+    from echoreo.scoring.cohort import participant_ranking
     from echoreo.scoring.parallel import default_workers
     from echoreo.scoring.report import ReportData, write_report
     from echoreo.scoring.studies import score_with_details
@@ -212,26 +213,7 @@ def run_demo(out: str | Path = "echoreo-demo", *, participants: int = 12, seed: 
     timings["report"] = time.perf_counter() - t0
     tick("report", 1, 1)
 
-    ranking = _ranking(records, profile_of, np.random.default_rng(seed))
+    # The report's ranking with the same generator: the printed table equals it.
+    ranking = participant_ranking(records, np.random.default_rng(seed))
+    ranking.insert(2, "profile", [profile_of.get(p, "?") for p in ranking["participant"]])
     return DemoResult(out, paths, report, ranking, records, timings)
-
-
-def _ranking(records: pd.DataFrame, profile_of: dict[str, str],
-             rng: np.random.Generator) -> pd.DataFrame:
-    from echoreo.scoring.cohort import bootstrap_ci
-
-    rows = []
-    for participant, group in records.groupby("participant"):
-        grades = group["grade"].to_numpy(dtype=float)
-        low, high = bootstrap_ci(grades, rng, n_boot=1000)
-        counts: dict[str, int] = {}
-        for flags in group["flags"]:
-            for f in flags:
-                counts[f] = counts.get(f, 0) + 1
-        top = ", ".join(f"{k} ×{v}" for k, v in sorted(counts.items(), key=lambda kv: -kv[1])[:3])
-        rows.append({"participant": participant, "profile": profile_of.get(participant, "?"),
-                     "mean_grade": float(np.nanmean(grades)) if np.isfinite(grades).any()
-                     else float("nan"), "ci_low": low, "ci_high": high, "flags": top})
-    df = pd.DataFrame(rows).sort_values("mean_grade", ascending=False).reset_index(drop=True)
-    df.insert(0, "rank", np.arange(1, len(df) + 1))
-    return df

@@ -61,6 +61,7 @@ _EXPORTS: dict[str, str] = {
     "mean_squares": "reliability",
     "bootstrap_ci": "cohort",
     "participant_summary": "cohort",
+    "participant_ranking": "cohort",
     "grade_reliability": "cohort",
     "flagged_participants": "cohort",
 }

@@ -22,7 +22,13 @@ import pandas as pd
 from echoreo.errors import ScoringInputError
 from echoreo.scoring.reliability import ICC_FORMS, icc
 
-__all__ = ["bootstrap_ci", "flagged_participants", "grade_reliability", "participant_summary"]
+__all__ = [
+    "bootstrap_ci",
+    "flagged_participants",
+    "grade_reliability",
+    "participant_ranking",
+    "participant_summary",
+]
 
 
 def bootstrap_ci(
@@ -131,6 +137,44 @@ def participant_summary(
             }
         )
     return pd.DataFrame(rows)
+
+
+def participant_ranking(records: pd.DataFrame, rng: np.random.Generator, *,
+                        n_boot: int = 1000) -> pd.DataFrame:
+    """Participants ranked by their mean grade over all repetitions and streams.
+
+    The interval is the percentile bootstrap of that mean over the
+    participant's graded records (see :func:`bootstrap_ci`); participants are
+    resampled in sorted order, so the same ``rng`` gives the same table.
+
+    Returns
+    -------
+    DataFrame
+        Columns ``rank, participant, n, mean_grade, ci_low, ci_high, flagged,
+        flags`` (``flagged``: records with at least one flag; ``flags``: the
+        three most frequent flags with their counts), best first.
+    """
+    _require(records, ["participant", "grade", "flags"])
+    rows = []
+    for participant, group in records.groupby("participant", sort=True):
+        grades = group["grade"].to_numpy(dtype=np.float64)
+        finite = grades[np.isfinite(grades)]
+        low, high = bootstrap_ci(finite, rng, n_boot=n_boot)
+        counts: dict[str, int] = {}
+        for flags in group["flags"]:
+            for flag in flags:
+                counts[flag] = counts.get(flag, 0) + 1
+        top = sorted(counts.items(), key=lambda kv: -kv[1])[:3]
+        rows.append({"participant": participant, "n": int(finite.size),
+                     "mean_grade": float(finite.mean()) if finite.size else float("nan"),
+                     "ci_low": low, "ci_high": high,
+                     "flagged": int(sum(1 for f in group["flags"] if len(f))),
+                     "flags": ", ".join(f"{k} ×{v}" for k, v in top)})
+    df = pd.DataFrame(rows, columns=["participant", "n", "mean_grade", "ci_low", "ci_high",
+                                     "flagged", "flags"])
+    df = df.sort_values("mean_grade", ascending=False, kind="stable").reset_index(drop=True)
+    df.insert(0, "rank", np.arange(1, len(df) + 1))
+    return df
 
 
 def grade_reliability(records: pd.DataFrame, *, across: str = "repetition") -> pd.DataFrame:

@@ -31,7 +31,7 @@ import pandas as pd
 
 from echoreo import __version__
 from echoreo.errors import ExportError, Problem
-from echoreo.scoring.cohort import flagged_participants, grade_reliability, participant_summary
+from echoreo.scoring.cohort import flagged_participants, grade_reliability, participant_ranking
 
 __all__ = ["SAFETY_TEXT", "ReportData", "build_report", "check_writable", "write_report"]
 
@@ -140,15 +140,13 @@ def _table(df: pd.DataFrame, float_fmt: str = "{:.2f}") -> str:
     return "".join(out)
 
 
-def _ranking_figure(figs: _Figures, summary: pd.DataFrame) -> str:
-    per = (summary.groupby("participant")
-           .agg(mean=("mean", "mean"), low=("ci_low", "mean"), high=("ci_high", "mean"))
-           .sort_values("mean"))
+def _ranking_figure(figs: _Figures, ranking: pd.DataFrame) -> str:
+    per = ranking.iloc[::-1]  # best at the top of the chart
     fig, ax = figs.plt.subplots(figsize=(7, 0.35 * len(per) + 1.2))
     y = np.arange(len(per))
-    err = np.vstack([per["mean"] - per["low"], per["high"] - per["mean"]])
-    ax.barh(y, per["mean"], color="#4a7ab5", xerr=np.nan_to_num(err), capsize=3)
-    ax.set_yticks(y, per.index)
+    err = np.vstack([per["mean_grade"] - per["ci_low"], per["ci_high"] - per["mean_grade"]])
+    ax.barh(y, per["mean_grade"], color="#4a7ab5", xerr=np.nan_to_num(err), capsize=3)
+    ax.set_yticks(y, per["participant"])
     ax.set_xlim(0, 100)
     ax.set_xlabel("mean grade over repetitions and streams (0-100), bars: bootstrap 95% CI")
     return figs.html(fig, "ranking", "Participants ranked by mean grade")
@@ -352,8 +350,9 @@ def build_report(data: ReportData, *, figures_dir: str | Path | None = None,
     figure_format : {"png", "svg"}
         Format of the figure files.
     rng : numpy.random.Generator, optional
-        For the bootstrap intervals; a generator seeded with 0 when omitted,
-        so that the same data give the same report.
+        For the bootstrap intervals (:func:`~echoreo.scoring.cohort.participant_ranking`
+        draws first); a generator seeded with 0 when omitted, so that the same
+        data give the same report.
 
     Returns
     -------
@@ -389,12 +388,8 @@ def build_report(data: ReportData, *, figures_dir: str | Path | None = None,
     ])
     body += ["<h2>Study summary</h2>", _table(summary_rows)]
     if len(rec):
-        summary = participant_summary(rec, rng, n_boot=1000)
-        ranked = (summary.groupby("participant")
-                  .agg(mean_grade=("mean", "mean"), ci_low=("ci_low", "mean"),
-                       ci_high=("ci_high", "mean"), flagged_reps=("flagged", "sum"))
-                  .sort_values("mean_grade", ascending=False).reset_index())
-        body += ["<h2>Ranking</h2>", _ranking_figure(figs, summary), _table(ranked)]
+        ranking = participant_ranking(rec, rng)
+        body += ["<h2>Ranking</h2>", _ranking_figure(figs, ranking), _table(ranking)]
         body += ["<h2>Grades per repetition</h2>", _heatmap_figure(figs, rec)]
         body += ["<h2>Distances in reconstructed space</h2>",
                  _boxplot_figure(figs, rec, data.details)]
