@@ -1,6 +1,6 @@
 """``echoreo bridge``: the reference robot bridge (simulated robot over ZeroMQ).
 
-Thin wrapper around :class:`echoreo.adapters.peers.RobotBridge`; see
+Thin wrapper around :class:`echoreo.adapters.bridge_peer.RobotBridge`; see
 adapters/PROTOCOL.md for the protocol and the watchdog requirement.
 """
 
@@ -36,7 +36,7 @@ def run(args: argparse.Namespace, console: Console) -> int:
     """Run the bridge until Ctrl-C, SIGTERM or ``--duration``."""
     import numpy as np
 
-    from echoreo.adapters.peers import RobotBridge, SimulatedRobotBackend
+    from echoreo.adapters.bridge_peer import RobotBridge, SimulatedRobotBackend
     from echoreo.adapters.security import CurveKeys
     from echoreo.sim import load_robot
 

@@ -1,6 +1,6 @@
 """``echoreo publish``: the reference sensor publisher (virtual participant over ZeroMQ).
 
-Thin wrapper around :class:`echoreo.adapters.peers.SensorPublisher`.
+Thin wrapper around :class:`echoreo.adapters.publisher_peer.SensorPublisher`.
 """
 
 from __future__ import annotations
@@ -51,8 +51,8 @@ def run(args: argparse.Namespace, console: Console) -> int:
     """Publish until Ctrl-C, SIGTERM or ``--duration``."""
     import numpy as np
 
-    from echoreo.adapters.peers import (
-        DeviceClock,
+    from echoreo.adapters._peer_common import DeviceClock
+    from echoreo.adapters.publisher_peer import (
         SensorPublisher,
         participant_streams,
         synthetic_streams,
