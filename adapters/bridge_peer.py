@@ -1,8 +1,11 @@
 """The reference robot bridge of the wire protocol (``echoreo bridge``).
 
-:class:`RobotBridge` serves one host at a time on a ROUTER socket, forwards
-joint commands to a robot backend, reports measured joint state, answers time
-requests, and **holds position when commands stop arriving** (watchdog; a
+:class:`RobotBridge` serves one host at a time on a ROUTER socket, hands each
+joint command to a robot backend at the command's session time (on the
+session clock as :class:`HostClockEstimate` sees it from the host's send
+stamps; commands sent ahead wait in a bounded queue, late ones are applied at
+once and counted), reports measured joint state, answers time requests, and
+**holds position when commands stop arriving** (watchdog; a
 requirement for every bridge, adapters/PROTOCOL.md section 6). The backend
 shipped here, :class:`SimulatedRobotBackend`, drives
 :class:`echoreo.sim.LeaderSim`; the places where a real robot's SDK calls go
@@ -17,10 +20,11 @@ from __future__ import annotations
 
 import os
 import time
+from collections import deque
 from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import Any, TextIO
 
 import numpy as np
 import zmq
@@ -38,7 +42,7 @@ from echoreo.adapters.protocol import MsgType, decode, encode
 from echoreo.adapters.security import CurveKeys, check_endpoint
 from echoreo.errors import ProtocolError
 
-__all__ = ["RobotBridge", "SimulatedRobotBackend"]
+__all__ = ["HostClockEstimate", "RobotBridge", "SimulatedRobotBackend"]
 
 
 class SimulatedRobotBackend:
@@ -102,6 +106,94 @@ class SimulatedRobotBackend:
         self.hold()
 
 
+class HostClockEstimate:
+    """The host's session clock as seen from the bridge, from the host's own send stamps.
+
+    Every message the host stamps with its session clock when sending (HELLO,
+    HEARTBEAT, TIME_REQ ``t1_ns``, HOLD, STOP) gives, with the bridge's
+    device time at receipt,
+
+    .. math::
+
+        d_i = t_{\\mathrm{rx},i} - t_{\\mathrm{host},i} = \\theta + \\lambda_i,
+        \\qquad \\lambda_i \\ge 0,
+
+    where :math:`\\theta` is the offset of the device clock from the session
+    clock (device minus session, ns) and :math:`\\lambda_i` the one-way delay
+    of message :math:`i`. The lower envelope (Moon, Skelly and Towsley 1999)
+    over a sliding window, one minimum per ``bin_s`` of device time,
+
+    .. math::
+
+        \\hat\\theta = \\min_{i:\\; t_{\\mathrm{rx},i} > t_\\mathrm{now} - W} d_i ,
+        \\qquad \\hat t_\\mathrm{dev}(t_s) = t_s + \\hat\\theta,
+
+    never places a session time earlier on the device clock than it is:
+    :math:`\\hat\\theta - \\theta` is the smallest one-way delay in the window
+    (tens of microseconds on loopback), plus at most
+    :math:`|\\mathrm{drift}|\\, W` for clocks that drift apart (0.5 ms for
+    50 ppm over the default 10 s window). Delayed messages only raise
+    :math:`d_i` and so never move the estimate.
+
+    Parameters
+    ----------
+    window_s : float
+        :math:`W`, device-time span of the minima kept, s.
+    bin_s : float
+        Device-time width of one bin (one minimum kept per bin), s.
+
+    References
+    ----------
+    S. B. Moon, P. Skelly, D. Towsley (1999). Estimation and removal of clock
+    skew from network delay measurements. Proc. IEEE INFOCOM '99, 227-234.
+    """
+
+    def __init__(self, window_s: float = 10.0, bin_s: float = 1.0):
+        self.window_s = window_s
+        self.bin_ns = max(1, round(bin_s * 1e9))
+        self._bins: deque[list[int]] = deque()  # [bin number, minimum of d (ns)]
+        self.offset_ns: int | None = None
+
+    @property
+    def ready(self) -> bool:
+        """True once one stamp has been added since the last :meth:`reset`."""
+        return self.offset_ns is not None
+
+    def reset(self) -> None:
+        """Forget every stamp (a new host, or the same host with a new session clock)."""
+        self._bins.clear()
+        self.offset_ns = None
+
+    def add(self, t_host_ns: int, t_rx_dev_ns: int) -> None:
+        """Add one host send stamp (session clock, ns) received at ``t_rx_dev_ns`` (device, ns)."""
+        d = int(t_rx_dev_ns) - int(t_host_ns)
+        k = int(t_rx_dev_ns) // self.bin_ns
+        if self._bins and self._bins[-1][0] == k:
+            self._bins[-1][1] = min(self._bins[-1][1], d)
+        else:
+            self._bins.append([k, d])
+        oldest = k - int(self.window_s * 1e9 / self.bin_ns)
+        while self._bins[0][0] < oldest:
+            self._bins.popleft()
+        self.offset_ns = min(b[1] for b in self._bins)
+
+    def to_device(self, t_session_ns: int) -> int:
+        """Device time (ns) of session time ``t_session_ns`` (ns); needs :attr:`ready`."""
+        if self.offset_ns is None:
+            raise RuntimeError("no host stamp received yet")
+        return int(t_session_ns) + self.offset_ns
+
+
+@dataclass
+class _Pending:
+    """An accepted command waiting for its time (device clock, ns)."""
+
+    seq: int
+    t_ns: int
+    due_dev_ns: int
+    q: np.ndarray
+
+
 @dataclass
 class _Host:
     identity: bytes
@@ -113,9 +205,28 @@ class RobotBridge:
     """Reference robot bridge (ROUTER socket; one host at a time).
 
     Modes reported in every STATE: ``idle`` (no host), ``hold`` (welcomed or
-    paused), ``follow`` (commands arriving), ``watchdog`` (commands stopped for
-    more than ``watchdog_s``: holding), ``stopped`` (controlled stop; commands
-    ignored until a new HELLO).
+    paused), ``follow`` (commands reaching the robot), ``watchdog`` (no command
+    arrived or became due for more than ``watchdog_s``: holding), ``stopped``
+    (controlled stop; commands ignored until a new HELLO).
+
+    Each accepted command is applied (handed to ``backend.send_joints``) at its
+    session time ``t_ns``, placed on the bridge's clock by
+    :class:`HostClockEstimate` (PROTOCOL.md section 5):
+
+    * due now or already past: applied at once; if more than ``late_s`` past
+      on arrival it counts as ``late`` (and its ACK ``ok`` says by how much);
+    * in the future by at most ``max_lead_s``: held in a queue of at most
+      ``queue_limit`` commands, in time order, and applied when due (a queued
+      command applied more than ``late_s`` after its time, because the loop
+      was busy, counts as ``slipped``);
+    * further ahead, or with the queue full: ACK ``rejected`` (the robot is
+      not held; queued commands play on).
+
+    A new command supersedes queued commands meant for the same time or later
+    (counted ``superseded``). HOLD, STOP, BYE, a new HELLO, a lost host, the
+    watchdog and a command rejected for its joint limits empty the queue
+    (counted ``dropped``): a queued command never moves the robot after the
+    host asked it to hold. STATE's ``acked_seq`` is the last command applied.
 
     Parameters
     ----------
@@ -134,11 +245,22 @@ class RobotBridge:
     rate_hz, state_rate_hz : float
         Control loop rate and state report rate, Hz.
     watchdog_s : float
-        Hold when no command arrived for this long while following, s.
+        Hold when, while following, no command arrived or became due for this long, s.
     heartbeat_s, host_timeout_s : float
         Heartbeat interval; a host silent for longer is dropped (and the robot holds), s.
     clock : DeviceClock
         The bridge's own clock (device time of states and acks).
+    late_s : float
+        A command applied more than this after its time counts as late (on
+        arrival) or slipped (from the queue), s.
+    max_lead_s : float
+        Furthest a command may lie in the future on arrival, s.
+    queue_limit : int
+        Most commands waiting for their time.
+    log : TextIO or None
+        Where to write one line ``seq t_ns due_dev_ns applied_dev_ns late`` per
+        command applied (``t_ns`` session clock, the others device clock, ns;
+        ``late`` 1 if it arrived late, else 0).
     """
 
     def __init__(self, backend: Any, robot_name: str, joint_names: tuple[str, ...],
@@ -146,7 +268,9 @@ class RobotBridge:
                  keys: CurveKeys | None = None, rate_hz: float = 100.0,
                  state_rate_hz: float = 50.0, watchdog_s: float = 0.25,
                  heartbeat_s: float = 0.2, host_timeout_s: float = 1.0,
-                 clock: DeviceClock | None = None):
+                 clock: DeviceClock | None = None, late_s: float = 0.01,
+                 max_lead_s: float = 2.0, queue_limit: int = 1000,
+                 log: TextIO | None = None):
         check_endpoint(endpoint, keys, "bind")
         self.backend = backend
         self.robot_name = robot_name
@@ -161,14 +285,22 @@ class RobotBridge:
         self.heartbeat_s = heartbeat_s
         self.host_timeout_s = host_timeout_s
         self.clock = clock or DeviceClock()
+        self.late_ns = round(late_s * 1e9)
+        self.max_lead_ns = round(max_lead_s * 1e9)
+        self.queue_limit = queue_limit
+        self.log = log
         self.boot = boot_id()
         self.mode = "idle"
         self.host: _Host | None = None
-        self.last_seq = -1
-        self.last_cmd = 0.0
+        self.host_clock = HostClockEstimate()
+        self.queue: deque[_Pending] = deque()
+        self.last_seq = -1       # last command accepted (applied or queued)
+        self.applied_seq = -1    # last command applied
+        self.last_cmd = 0.0      # monotonic s of the last command arrival or application
         self.state_seq = 0
-        self.counts = {"commands": 0, "rejected": 0, "stale": 0, "malformed": 0,
-                       "states": 0, "watchdog_holds": 0}
+        self.counts = {"commands": 0, "applied": 0, "late": 0, "queued": 0, "slipped": 0,
+                       "superseded": 0, "dropped": 0, "rejected": 0, "stale": 0,
+                       "malformed": 0, "states": 0, "watchdog_holds": 0}
         self.stopper = Stopper()
         self.bound_endpoint = ""
         self._err_budget = 10.0
@@ -177,7 +309,22 @@ class RobotBridge:
     # the loop -----------------------------------------------------------------------
     def serve(self, duration_s: float | None = None, ready_file: str | Path | None = None,
               on_ready: Callable[[str], None] | None = None) -> dict[str, int]:
-        """Listen and run the control loop until stopped; returns the counters."""
+        """Listen and run the control loop until stopped.
+
+        Parameters
+        ----------
+        duration_s : float or None
+            Stop after this many s (real time); None runs until SIGTERM/SIGINT.
+        ready_file : str, Path or None
+            Where to write ``{endpoint, pid}`` as JSON once listening.
+        on_ready : callable or None
+            Called with the bound endpoint once listening.
+
+        Returns
+        -------
+        dict of str to int
+            The counters (commands accepted, applied, late, ...).
+        """
         ctx = zmq.Context()
         sock, auth = peer_socket(ctx, self.keys)
         try:
@@ -189,10 +336,12 @@ class RobotBridge:
                 on_ready(self.bound_endpoint)
             self._loop(sock, duration_s)
         finally:
-            self.backend.hold()
+            self._hold()
             if self.host is not None:
                 self._send(sock, self.host.identity, MsgType.BYE, {"reason": "bridge stopping"})
             self.backend.close()
+            if self.log is not None:
+                self.log.flush()
             drain_then_close(sock)
             if auth is not None:
                 auth.stop()
@@ -209,7 +358,11 @@ class RobotBridge:
             now = time.monotonic()
             if duration_s is not None and now - t0 >= duration_s:
                 break
-            timeout_ms = max(0.0, (next_tick - now) * 1e3)
+            wake = next_tick
+            if self.queue:  # wake up when the next queued command is due
+                wait_dev = self.queue[0].due_dev_ns - self.clock.now_ns()
+                wake = min(wake, now + self.clock.real_s(max(0, wait_dev)))
+            timeout_ms = max(0.0, (wake - now) * 1e3)
             if poller.poll(timeout_ms):
                 for _ in range(1000):
                     try:
@@ -217,6 +370,8 @@ class RobotBridge:
                     except zmq.Again:
                         break
                     self._handle(sock, frames)
+            if self.queue:
+                self._apply_due()
             now = time.monotonic()
             if now < next_tick:
                 continue
@@ -230,11 +385,11 @@ class RobotBridge:
         host = self.host
         if host is not None and now - host.last_rx > self.host_timeout_s:
             self.host = None                 # host lost: hold where we are
-            self.backend.hold()
+            self._hold()
             self.mode = "idle"
             host = None
         if self.mode == "follow" and now - self.last_cmd > self.watchdog_s:
-            self.backend.hold()              # watchdog: commands stopped -> hold position
+            self._hold()                     # watchdog: commands stopped -> hold position
             self.mode = "watchdog"
             self.counts["watchdog_holds"] += 1
         self.backend.advance(self.dt)
@@ -244,7 +399,7 @@ class RobotBridge:
             q = self.backend.read_joints()
             self._send(sock, host.identity, MsgType.STATE,
                        {"seq": self.state_seq, "t_dev_ns": self.clock.now_ns(),
-                        "acked_seq": self.last_seq, "mode": self.mode}, q)
+                        "acked_seq": self.applied_seq, "mode": self.mode}, q)
             self.state_seq += 1
             self.counts["states"] += 1
             host.last_hb = now  # a state is a heartbeat
@@ -252,6 +407,33 @@ class RobotBridge:
             host.last_hb = now
             self._send(sock, host.identity, MsgType.HEARTBEAT, {"t_ns": self.clock.now_ns()})
 
+    # commands on time ---------------------------------------------------------------
+    def _hold(self) -> None:
+        """Hold the robot and forget the commands waiting for their time."""
+        self.backend.hold()
+        self.counts["dropped"] += len(self.queue)
+        self.queue.clear()
+
+    def _apply(self, p: _Pending, late: bool) -> None:
+        """Hand one command to the robot now (the moment logged is just before the call)."""
+        t_app = self.clock.now_ns()
+        self.backend.send_joints(p.q)
+        self.applied_seq = p.seq
+        self.last_cmd = time.monotonic()
+        self.mode = "follow"
+        self.counts["applied"] += 1
+        if self.log is not None:
+            self.log.write(f"{p.seq} {p.t_ns} {p.due_dev_ns} {t_app} {int(late)}\n")
+
+    def _apply_due(self) -> None:
+        """Apply, in time order, every queued command whose time has come."""
+        while self.queue and self.queue[0].due_dev_ns <= (now_dev := self.clock.now_ns()):
+            p = self.queue.popleft()
+            if now_dev - p.due_dev_ns > self.late_ns:
+                self.counts["slipped"] += 1
+            self._apply(p, late=False)
+
+    # messages -----------------------------------------------------------------------
     def _send(self, sock: zmq.Socket, ident: bytes, kind: MsgType, meta: dict,
               *arrays: np.ndarray) -> None:
         try:
@@ -288,9 +470,11 @@ class RobotBridge:
                 self._error(sock, ident, "busy", "another host is connected to this bridge")
                 return
             self.host = _Host(ident, now)
-            self.backend.hold()
+            self._hold()
             self.mode = "hold"
-            self.last_seq = -1
+            self.last_seq = self.applied_seq = -1
+            self.host_clock.reset()  # a new session clock, perhaps
+            self.host_clock.add(m["t_ns"], t_rx_dev)
             self._send(sock, ident, MsgType.WELCOME, {
                 "robot": self.robot_name, "joint_names": list(self.joint_names),
                 "q": [float(x) for x in self.backend.read_joints()],
@@ -300,6 +484,8 @@ class RobotBridge:
                 "bridge": "echoreo reference bridge (simulated robot)"})
             return
         if msg.type == MsgType.TIME_REQ:
+            if is_host:
+                self.host_clock.add(m["t1_ns"], t_rx_dev)
             rep = encode(MsgType.TIME_REP, {"id": m["id"], "t1_ns": m["t1_ns"],
                                             "t2_ns": t_rx_dev, "t3_ns": self.clock.now_ns()},
                          check=False)
@@ -314,17 +500,19 @@ class RobotBridge:
             return
         assert self.host is not None
         self.host.last_rx = now
+        if msg.type in (MsgType.HEARTBEAT, MsgType.HOLD, MsgType.STOP):
+            self.host_clock.add(m["t_ns"], t_rx_dev)  # the host's send stamps
         if msg.type == MsgType.COMMAND:
             self._command(sock, ident, m, msg.arrays[0], t_rx_dev, now)
         elif msg.type == MsgType.HOLD:
-            self.backend.hold()
+            self._hold()
             if self.mode != "stopped":
                 self.mode = "hold"
         elif msg.type == MsgType.STOP:
-            self.backend.hold()
+            self._hold()
             self.mode = "stopped"
         elif msg.type == MsgType.BYE:
-            self.backend.hold()
+            self._hold()
             self.host = None
             self.mode = "idle"
 
@@ -353,15 +541,39 @@ class RobotBridge:
         bad = np.flatnonzero((q < self.lower - tol) | (q > self.upper + tol))
         if bad.size:
             self.counts["rejected"] += 1
-            self.backend.hold()
+            self._hold()
             self.mode = "hold"
             j = int(bad[0])
             ack("rejected", f"{self.joint_names[j]} = {q[j]:.4f} rad outside "
                             f"[{self.lower[j]:.4f}, {self.upper[j]:.4f}]")
             return
+        t_ns = int(m["t_ns"])
+        due = self.host_clock.to_device(t_ns)  # ready: HELLO came first
+        lead = due - self.clock.now_ns()
+        if lead > self.max_lead_ns:
+            self.counts["rejected"] += 1
+            ack("rejected", f"meant for {lead * 1e-9:.3f} s from now; this bridge queues "
+                            f"commands at most {self.max_lead_ns * 1e-9:g} s ahead")
+            return
+        while self.queue and self.queue[-1].t_ns >= t_ns:  # a new plan from t_ns on
+            self.queue.pop()
+            self.counts["superseded"] += 1
+        if lead > 0 and len(self.queue) >= self.queue_limit:
+            self.counts["rejected"] += 1
+            ack("rejected", f"command queue full ({self.queue_limit} commands waiting)")
+            return
         self.last_seq = seq
         self.last_cmd = now
-        self.mode = "follow"
-        self.backend.send_joints(q)
         self.counts["commands"] += 1
-        ack("ok")
+        pending = _Pending(seq, t_ns, due, q.copy())
+        if lead > 0:
+            self.queue.append(pending)
+            self.counts["queued"] += 1
+            ack("ok")
+            return
+        self._apply_due()  # anything queued is earlier, hence due as well
+        late = -lead > self.late_ns
+        if late:
+            self.counts["late"] += 1
+        self._apply(pending, late)
+        ack("ok", f"late by {-lead * 1e-6:.1f} ms; applied at once" if late else "")

@@ -7,6 +7,7 @@ adapters/PROTOCOL.md for the protocol and the watchdog requirement.
 from __future__ import annotations
 
 import argparse
+import contextlib
 
 from rich.console import Console
 
@@ -27,6 +28,14 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--tau", type=float, default=0.05, help="simulated lag constant, s")
     parser.add_argument("--noise", type=float, default=0.0, help="measurement noise, rad")
     parser.add_argument("--seed", type=int, default=0, help="seed of the noise generator")
+    parser.add_argument("--late", type=float, default=0.01,
+                        help="a command applied more than this after its time counts as late, s")
+    parser.add_argument("--max-lead", type=float, default=2.0,
+                        help="furthest ahead a command may be meant for, s")
+    parser.add_argument("--queue-limit", type=int, default=1000,
+                        help="most commands waiting for their time")
+    parser.add_argument("--log", default=None,
+                        help="write 'seq t_ns due_dev_ns applied_dev_ns late' per applied command")
     parser.add_argument("--duration", type=float, default=None, help="stop after this many s")
     parser.add_argument("--ready-file", default=None,
                         help="write {endpoint, pid} as JSON here once listening")
@@ -44,11 +53,15 @@ def run(args: argparse.Namespace, console: Console) -> int:
     keys = CurveKeys(args.keys) if args.keys else None
     backend = SimulatedRobotBackend(robot, tau_s=args.tau, noise_std=args.noise,
                                     rng=np.random.default_rng(args.seed))
-    bridge = RobotBridge(backend, robot.name, robot.joint_names, robot.lower, robot.upper,
-                         args.endpoint, keys=keys, rate_hz=args.rate,
-                         state_rate_hz=args.state_rate, watchdog_s=args.watchdog)
-    counts = bridge.serve(duration_s=args.duration, ready_file=args.ready_file,
-                          on_ready=lambda ep: console.print(
-                              f"bridge for {robot.name} listening on {ep} (Ctrl-C stops)"))
+    with contextlib.ExitStack() as stack:
+        log = stack.enter_context(open(args.log, "w")) if args.log else None
+        bridge = RobotBridge(backend, robot.name, robot.joint_names, robot.lower, robot.upper,
+                             args.endpoint, keys=keys, rate_hz=args.rate,
+                             state_rate_hz=args.state_rate, watchdog_s=args.watchdog,
+                             late_s=args.late, max_lead_s=args.max_lead,
+                             queue_limit=args.queue_limit, log=log)
+        counts = bridge.serve(duration_s=args.duration, ready_file=args.ready_file,
+                              on_ready=lambda ep: console.print(
+                                  f"bridge for {robot.name} listening on {ep} (Ctrl-C stops)"))
     console.print("bridge stopped: " + ", ".join(f"{k} {v}" for k, v in counts.items()))
     return 0
