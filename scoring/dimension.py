@@ -5,10 +5,10 @@ from __future__ import annotations
 from typing import Literal, NamedTuple
 
 import numpy as np
-from scipy.spatial import cKDTree
 
 from echoreo.errors import ScoringInputError
 from echoreo.scoring._checks import as_series, check_positive_int, require_not_constant
+from echoreo.scoring._neighbours import nearest_other
 from echoreo.scoring.embedding import embed
 
 __all__ = ["CaoResult", "cao", "choose_dimension", "fnn"]
@@ -53,39 +53,6 @@ def _prepare(x: object, delay: object, max_dim: object) -> tuple[np.ndarray, int
     return series, delay, max_dim
 
 
-def _nearest_other(points: np.ndarray, p: float, nonzero: bool) -> tuple[np.ndarray, np.ndarray]:
-    """Index and distance of every point's nearest neighbour other than itself.
-
-    With ``nonzero`` the neighbour must also lie at a positive distance (Cao 1997:
-    identical vectors are skipped); points without any such neighbour get index -1.
-    """
-    n = points.shape[0]
-    tree = cKDTree(points)
-    dist, idx = tree.query(points, k=2, p=p, workers=-1)
-    own = np.arange(n)
-    first_is_self = idx[:, 0] == own
-    nb = np.where(first_is_self, idx[:, 1], idx[:, 0])
-    nd = np.where(first_is_self, dist[:, 1], dist[:, 0])
-    if nonzero:
-        todo = np.flatnonzero(nd == 0.0)
-        k = 4
-        while todo.size:
-            kk = min(k, n)
-            d2, i2 = tree.query(points[todo], k=kk, p=p, workers=-1)
-            ok = d2 > 0.0
-            has = ok.any(axis=1)
-            col = np.argmax(ok, axis=1)
-            rows = np.arange(todo.size)
-            nb[todo[has]] = i2[rows, col][has]
-            nd[todo[has]] = d2[rows, col][has]
-            todo = todo[~has]
-            if kk == n:
-                nb[todo] = -1
-                break
-            k *= 4
-    return nb, nd
-
-
 def fnn(x: object, delay: int, max_dim: int = 10, rtol: float = 15.0,
         atol: float = 2.0) -> np.ndarray:
     r"""Fraction of false nearest neighbours for dimensions 1 to ``max_dim``.
@@ -105,7 +72,8 @@ def fnn(x: object, delay: int, max_dim: int = 10, rtol: float = 15.0,
 
     with :math:`R_A` the standard deviation of the series. The result is the
     fraction of false neighbours among the :math:`N_d` vectors. Neighbour search:
-    one k-d tree per dimension (``scipy.spatial.cKDTree``), all points queried at once.
+    exact box-assisted search per dimension (Grassberger 1990; Schreiber 1995; see
+    ``echoreo.scoring._neighbours``), a k-d tree where boxes do not pay.
 
     Parameters
     ----------
@@ -148,7 +116,7 @@ def _fnn_fraction(series: np.ndarray, delay: int, d: int, rtol: float, atol: flo
     """Fraction of false nearest neighbours at dimension d (see :func:`fnn`)."""
     count = series.shape[0] - d * delay
     points = embed(series, d, delay)[:count]
-    nb, r_d = _nearest_other(points, p=2.0, nonzero=False)
+    nb, r_d = nearest_other(points, p=2.0, nonzero=False)
     gap = np.abs(series[d * delay : d * delay + count] - series[nb + d * delay])
     false1 = gap > rtol * r_d
     false2 = np.sqrt(r_d * r_d + gap * gap) > atol * r_a
@@ -159,7 +127,7 @@ def _cao_e(series: np.ndarray, delay: int, d: int) -> tuple[float, float]:
     """Cao's E(d) and E*(d) (see :func:`cao`)."""
     count = series.shape[0] - d * delay
     points = embed(series, d, delay)[:count]
-    nb, r_d = _nearest_other(points, p=np.inf, nonzero=True)
+    nb, r_d = nearest_other(points, p=np.inf, nonzero=True)
     keep = nb >= 0
     if not keep.any():
         raise ScoringInputError(

@@ -5,15 +5,12 @@ from __future__ import annotations
 import math
 
 import numpy as np
+from numba import njit
 
 from echoreo.errors import ScoringInputError
 from echoreo.scoring._checks import as_series, check_positive_int, require_not_constant
 
 __all__ = ["ami", "choose_delay", "freedman_diaconis_bins", "sturges_bins"]
-
-# Lags evaluated per vectorised pass of choose_delay before it looks for a minimum.
-_LAG_CHUNK = 8
-
 
 def sturges_bins(n: int) -> int:
     r"""Number of histogram bins by Sturges' rule (fallback of :func:`freedman_diaconis_bins`).
@@ -79,22 +76,41 @@ def _weights(series: np.ndarray, bins: int) -> tuple[np.ndarray, np.ndarray]:
     return idx, w
 
 
+@njit(cache=True, nogil=True)
+def _ami_lag(idx, w, bins, lag):  # pragma: no cover - compiled
+    """AMI (nats) at one lag from the bins ``idx`` (n, s) and weights ``w`` (n, s)."""
+    n, s = idx.shape
+    pairs = n - lag
+    p = np.zeros((bins, bins))
+    for t in range(pairs):
+        u = t + lag
+        for a in range(s):
+            row = idx[t, a]
+            wa = w[t, a]
+            for b in range(s):
+                p[row, idx[u, b]] += wa * w[u, b]
+    px = np.zeros(bins)
+    py = np.zeros(bins)
+    for a in range(bins):
+        for b in range(bins):
+            p[a, b] /= pairs
+            px[a] += p[a, b]
+            py[b] += p[a, b]
+    total = 0.0
+    for a in range(bins):
+        for b in range(bins):
+            pab = p[a, b]
+            if pab > 1e-300:
+                total += pab * math.log(pab / (px[a] * py[b]))
+    return max(0.0, total)
+
+
 def _ami_lags(weights: tuple[np.ndarray, np.ndarray], bins: int, lags: np.ndarray) -> np.ndarray:
-    """AMI (nats) for each lag in ``lags``; one weighted bincount per lag."""
+    """AMI (nats) for each lag in ``lags``: one pass over the sample pairs per lag."""
     idx, w = weights
-    n = idx.shape[0]
-    cells = bins * bins
-    out = np.empty(lags.shape[0])
-    for k, lag in enumerate(lags):
-        keys = (idx[: n - lag, :, None] * bins + idx[lag:, None, :]).ravel()
-        mass = (w[: n - lag, :, None] * w[lag:, None, :]).ravel()
-        p = np.bincount(keys, weights=mass, minlength=cells).reshape(bins, bins) / (n - lag)
-        px = p.sum(axis=1)
-        py = p.sum(axis=0)
-        outer = px[:, None] * py[None, :]
-        nz = p > 1e-300
-        out[k] = max(0.0, float(np.sum(p[nz] * np.log(p[nz] / outer[nz]))))
-    return out
+    idx = np.ascontiguousarray(idx, dtype=np.int64)
+    w = np.ascontiguousarray(w, dtype=np.float64)
+    return np.array([_ami_lag(idx, w, int(bins), int(lag)) for lag in lags], dtype=float)
 
 
 def _check_lag(max_lag: object, n: int) -> int:
@@ -199,8 +215,9 @@ def choose_delay(x: object, max_lag: int | None = None, bins: int | None = None)
 
     Looking two lags ahead (our choice) keeps the sampling wiggles of a flat
     minimum (about 0.002 nats for a noisy sine of 2,000 samples) from ending the
-    search a few lags early. Lags are evaluated in passes of 8 and the search stops at
-    the first minimum, so a long ``max_lag`` costs nothing when the minimum is early.
+    search a few lags early. Lags are evaluated one at a time (one compiled pass over
+    the sample pairs each) and the search stops two lags after the first minimum, so a
+    long ``max_lag`` costs nothing when the minimum is early.
 
     Fallbacks (our own choice, not from Fraser & Swinney): when :math:`I` has no
     local minimum up to ``max_lag``, the first lag with
@@ -245,15 +262,18 @@ def choose_delay(x: object, max_lag: int | None = None, bins: int | None = None)
     max_lag = max(max_lag, 1)
     bins = freedman_diaconis_bins(series) if bins is None else check_positive_int(bins, "bins")
     weights = _weights(series, bins)
-    values = np.empty(0)
+    idx, w = weights
+    idx = np.ascontiguousarray(idx, dtype=np.int64)
+    w = np.ascontiguousarray(w, dtype=np.float64)
+    values = []
     # Evaluate lags beyond max_lag when possible, so that max_lag itself can be a minimum.
     last = min(max_lag + _AHEAD, n - 2)
-    for start in range(0, last + 1, _LAG_CHUNK):
-        lags = np.arange(start, min(start + _LAG_CHUNK, last + 1))
-        values = np.concatenate([values, _ami_lags(weights, bins, lags)])
-        tau = _first_local_minimum(values)
-        if tau is not None and tau <= max_lag:
+    for lag in range(last + 1):
+        values.append(_ami_lag(idx, w, int(bins), lag))
+        tau = lag - _AHEAD  # the one candidate whose look-ahead is now complete
+        if 1 <= tau <= max_lag and _first_local_minimum(np.asarray(values[: lag + 1])) == tau:
             return tau
+    values = np.asarray(values)
     below = np.flatnonzero(values[1 : max_lag + 1] < values[0] / math.e)
     if below.size:
         return int(below[0]) + 1

@@ -1,0 +1,134 @@
+"""The box-assisted nearest-neighbour search against brute force with scipy.
+
+Reference: ``scipy.spatial.distance.cdist`` (Virtanen et al. 2020, SciPy 1.0) gives
+every pairwise distance; the nearest other point is the row minimum with the
+diagonal excluded. ``scipy.spatial.cKDTree`` is the second reference on inputs too
+large for a full distance matrix.
+"""
+
+import numpy as np
+import pytest
+from scipy.spatial import cKDTree
+from scipy.spatial.distance import cdist
+
+from echoreo.scoring import _neighbours
+from echoreo.scoring._neighbours import nearest_other
+from echoreo.scoring.embedding import embed
+
+
+def distance_matrix(points, p, nonzero):
+    """All pairwise distances (scipy), the diagonal (and zeros if nonzero) set to inf."""
+    dmat = cdist(points, points, metric="euclidean" if p == 2.0 else "chebyshev")
+    np.fill_diagonal(dmat, np.inf)
+    if nonzero:
+        dmat[dmat == 0.0] = np.inf
+    return dmat
+
+
+def check(points, p, nonzero):
+    """Distances equal brute force; the index is the smallest of the nearest points.
+
+    Ties are judged with a relative tolerance of 1e-12: the search compares squared
+    Euclidean distances, and two sums of squares that differ in the last bit can
+    round to the same square root.
+    """
+    idx, dist = nearest_other(points, p=p, nonzero=nonzero)
+    dmat = distance_matrix(points, p, nonzero)
+    ref_dist = dmat.min(axis=1)
+    np.testing.assert_allclose(dist, ref_dist, rtol=1e-12, atol=0.0)
+    lone = ~np.isfinite(ref_dist)
+    assert np.all(idx[lone] == -1)
+    rows = np.flatnonzero(~lone)
+    tied = dmat[rows] <= ref_dist[rows, None] * (1.0 + 1e-12)
+    assert np.all(tied[np.arange(rows.size), idx[rows]]), "returned point is not a nearest one"
+    exact = tied.sum(axis=1) == 1
+    first = np.argmax(tied, axis=1)
+    np.testing.assert_array_equal(idx[rows][exact], first[exact])
+    return idx
+
+
+def lorenz_like(n, rng):
+    """A thin curved set in 3-D: points near a helix, as delay vectors often are."""
+    t = np.sort(rng.uniform(0, 20 * np.pi, n))
+    return np.column_stack([np.cos(t), np.sin(t), 0.05 * t]) + 0.01 * rng.standard_normal((n, 3))
+
+
+@pytest.mark.parametrize("p", [2.0, np.inf])
+@pytest.mark.parametrize("nonzero", [False, True])
+@pytest.mark.parametrize("dim", [1, 2, 3, 5, 8])
+def test_random_points_equal_brute_force(p, nonzero, dim):
+    rng = np.random.default_rng(100 + dim)
+    check(rng.standard_normal((700, dim)), p, nonzero)
+
+
+@pytest.mark.parametrize("p", [2.0, np.inf])
+@pytest.mark.parametrize("nonzero", [False, True])
+def test_quantised_points_with_many_ties_and_duplicates(p, nonzero):
+    """Rounded data: exact duplicates and equidistant neighbours everywhere."""
+    rng = np.random.default_rng(7)
+    for dim in (1, 2, 3):
+        points = np.round(rng.standard_normal((600, dim)) * 3.0) / 3.0
+        check(points, p, nonzero)
+
+
+@pytest.mark.parametrize("p", [2.0, np.inf])
+def test_thin_set_delay_vectors_and_noise(p):
+    rng = np.random.default_rng(11)
+    check(lorenz_like(900, rng), p, False)
+    x = np.sin(np.arange(1200) * 0.07) + 0.05 * rng.standard_normal(1200)
+    for dim in (2, 3, 4):
+        check(np.ascontiguousarray(embed(x, dim, 20)), p, True)
+
+
+def test_clusters_far_apart_and_lone_outliers():
+    rng = np.random.default_rng(3)
+    a = rng.standard_normal((300, 2)) * 1e-3
+    b = rng.standard_normal((300, 2)) * 1e-3 + 50.0
+    lone = np.array([[25.0, -40.0], [-80.0, 3.0]])
+    check(np.vstack([a, b, lone]), 2.0, False)
+    check(np.vstack([a, b, lone]), np.inf, True)
+
+
+def test_constant_grid_coordinates_and_identical_points():
+    rng = np.random.default_rng(5)
+    flat = np.column_stack([np.zeros(200), np.ones(200), rng.standard_normal(200)])
+    check(flat, 2.0, False)  # the k-d tree answers
+    same = np.ones((50, 3))
+    idx, dist = nearest_other(same, p=np.inf, nonzero=True)
+    assert np.all(idx == -1) and np.all(np.isinf(dist))
+    idx, dist = nearest_other(same, p=2.0, nonzero=False)
+    assert np.all(dist == 0.0) and np.all(idx != np.arange(50))
+    line = np.column_stack([np.arange(100.0), np.full(100, 2.0)])  # one live grid axis
+    check(line, 2.0, False)
+
+
+def test_few_points():
+    idx, dist = nearest_other(np.zeros((1, 2)))
+    assert idx.tolist() == [-1] and np.isinf(dist[0])
+    idx, dist = nearest_other(np.array([[0.0, 0.0], [3.0, 4.0]]))
+    assert idx.tolist() == [1, 0] and dist.tolist() == [5.0, 5.0]
+    with pytest.raises(ValueError, match="p must be 2 or inf"):
+        nearest_other(np.zeros((3, 2)), p=1.0)
+
+
+@pytest.mark.parametrize("p", [2.0, np.inf])
+def test_threaded_search_on_a_large_set_equals_the_kd_tree(p):
+    """Above the threading threshold: distances equal scipy's k-d tree."""
+    rng = np.random.default_rng(21)
+    n = max(2 * _neighbours._PARALLEL_FROM, 12000)
+    x = np.cumsum(rng.standard_normal(n + 40))
+    points = np.ascontiguousarray(embed(x, 3, 10))
+    _idx, dist = nearest_other(points, p=p)
+    ref, _ = cKDTree(points).query(points, k=2, p=p)
+    np.testing.assert_allclose(dist, ref[:, 1], rtol=1e-12)
+
+
+def test_fallback_to_the_kd_tree_gives_the_same_distances(monkeypatch):
+    """With no work allowed per query the grid gives up at once and the tree answers."""
+    monkeypatch.setattr(_neighbours, "_WORK_PER_QUERY", 0)
+    rng = np.random.default_rng(9)
+    points = rng.standard_normal((30000, 4))  # the budget slack is spent well before the end
+    assert _neighbours._grid_nearest(points, 2.0, False) is None
+    _idx, dist = nearest_other(points)
+    ref, _ = cKDTree(points).query(points, k=2)
+    np.testing.assert_allclose(dist, ref[:, 1], rtol=1e-12)
