@@ -41,12 +41,17 @@ class GradeConfig:
     wasserstein :math:`e^{-W / s_W}`                    normalised W1
     shape      :math:`e^{-D / s_D}`                     shape distance D
     determinism :math:`\\mathrm{DET}` (0 if RR = 0)       cross-recurrence DET
-    correlation :math:`\\max(0, \\rho)`                   peak lagged correlation
+    correlation :math:`\\max(0, \\rho)`                   record ``correlation`` ρ
     lag        :math:`e^{-\\ell / s_\\ell}`               lag ℓ (s)
     variability :math:`e^{-\\mathrm{CV} / s_V}`          across-repetition CV
     ========== ======================================= ==================
 
     grade = 100 · Σ w_c s_c / Σ w_c over the components that are defined.
+
+    ρ is the record field ``correlation``: the Pearson correlation of the leader's and
+    the lag-aligned follower's one-dimensional signals over the repetition,
+    :math:`\\rho = \\sum_i (x_i - \\bar x)(y_i - \\bar y) / \\sqrt{\\sum_i (x_i - \\bar x)^2
+    \\sum_i (y_i - \\bar y)^2}` (dimensionless, in [−1, 1]; METHODS.md 3.2).
 
     Attributes
     ----------

@@ -75,11 +75,13 @@ RECORD_FIELDS: tuple[str, ...] = (
     "session", "participant", "study", "stream", "kind", "site", "leader_site",
     "choreography", "move", "step", "repetition", "t_start", "t_end", "lag_s",
     "median_ratio", "iqr_ratio", "wasserstein", "shape_distance", "crqa_RR", "crqa_DET",
-    "crqa_L", "crqa_Lmax", "crqa_ENTR", "crqa_LAM", "crqa_TT", "variability", "grade",
-    "band", "flags", "delay", "dim", "signal", "rate_hz", "filter_cutoff_hz", "filter_order",
+    "crqa_L", "crqa_Lmax", "crqa_ENTR", "crqa_LAM", "crqa_TT", "correlation", "variability",
+    "grade", "band", "flags", "delay", "dim", "signal", "rate_hz", "filter_cutoff_hz",
+    "filter_order",
 )
 _METRICS = ("median_ratio", "iqr_ratio", "wasserstein", "shape_distance", "crqa_RR",
-            "crqa_DET", "crqa_L", "crqa_Lmax", "crqa_ENTR", "crqa_LAM", "crqa_TT")
+            "crqa_DET", "crqa_L", "crqa_Lmax", "crqa_ENTR", "crqa_LAM", "crqa_TT",
+            "correlation")
 _NAN = float("nan")
 #: peak-to-peak below which a follower's channels count as exactly constant while the
 #: leader moves (no real sensor on a person reads one value through a whole movement)
@@ -815,7 +817,7 @@ def score_data(data: SessionData, params: ScoringParams | None = None, *,
                 d["axis"] = u
                 ex = {"still": False, "rms_l": _NAN, "rms_f": _NAN, "fmed": _NAN,
                       "scored": False, "skipped": False, "at_edge": at_edge,
-                      "own_lag": own_lag, "corr": _NAN}
+                      "own_lag": own_lag}
                 where = _where(data, name, move, step, int(row.repetition))
                 a = _grid_index(float(row.t_start), rate) - prep.k0
                 b = _grid_index(float(row.t_end), rate) - prep.k0
@@ -882,13 +884,13 @@ def score_data(data: SessionData, params: ScoringParams | None = None, *,
                     continue
                 rec.update(median_ratio=cmp.median_ratio, iqr_ratio=cmp.iqr_ratio,
                            wasserstein=cmp.wasserstein, shape_distance=cmp.shape_distance,
-                           **{f"crqa_{k}": v for k, v in cmp.crqa.items()})
-                ex["corr"] = lagged_correlation(sl, sf, 0, sl.shape[0], 0)
+                           **{f"crqa_{k}": v for k, v in cmp.crqa.items()},
+                           correlation=lagged_correlation(sl, sf, 0, sl.shape[0], 0))
                 ex["fmed"] = float(np.median(cmp.follower_dist))
                 ex["scored"] = True
                 d.update(leader_pc=cmp.leader_pc, follower_pc=cmp.follower_pc,
                          leader_dist=cmp.leader_dist, follower_dist=cmp.follower_dist,
-                         correlation=ex["corr"])
+                         correlation=rec["correlation"])
 
     timings["metrics (embed, PCA, distances, CRQA)"] = clock() - mark
     mark = clock()
@@ -929,10 +931,10 @@ def _second_pass(records: list[dict], extra: list[dict], det: list[dict], cfg) -
             rec["grade"] = 0.0
             flags.append("skipped")
         elif ex["scored"]:
+            # the grade is computed from the record's own fields (correlation included)
             m = {k: rec[k] for k in ("median_ratio", "iqr_ratio", "wasserstein",
-                                      "shape_distance", "crqa_RR", "crqa_DET", "lag_s",
-                                      "variability")}
-            m["correlation"] = ex["corr"]
+                                      "shape_distance", "crqa_RR", "crqa_DET", "correlation",
+                                      "lag_s", "variability")}
             comp = component_scores(m, cfg)
             det[i]["components"] = comp
             rec["grade"] = grade_from_components(comp, cfg)

@@ -223,6 +223,12 @@ def test_echoreo_score_json_writes_scores_and_exit_codes(session, tmp_path):
     stored = SessionFile(session).scores()
     assert len(stored) == len(data)
     assert (tmp_path / "s.csv").read_text().startswith("session,participant,study,stream")
+    # `correlation` (the grade's correlation component's input) in all three outputs
+    graded = [i for i, r in enumerate(data) if r["median_ratio"] is not None]
+    assert graded and all(isinstance(data[i]["correlation"], float) for i in graded)
+    assert all(list(r) == list(RECORD_FIELDS) for r in stored["record"])
+    assert [r["correlation"] for r in stored["record"]] == [r["correlation"] for r in data]
+    assert "correlation" in (tmp_path / "s.csv").read_text().splitlines()[0].split(",")
     missing = _cli(str(tmp_path / "nope.sqlite"), cwd=tmp_path)
     assert missing.returncode == 2
     assert "no such file or folder" in missing.stderr

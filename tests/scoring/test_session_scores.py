@@ -23,8 +23,8 @@ from echoreo.sim.participant import PROFILES, simulate_participant
 
 CONTRACT = ("session participant study stream kind site leader_site choreography move step "
             "repetition t_start t_end lag_s median_ratio iqr_ratio wasserstein shape_distance "
-            "crqa_RR crqa_DET crqa_L crqa_Lmax crqa_ENTR crqa_LAM crqa_TT variability grade "
-            "band flags delay dim signal rate_hz filter_cutoff_hz filter_order").split()
+            "crqa_RR crqa_DET crqa_L crqa_Lmax crqa_ENTR crqa_LAM crqa_TT correlation variability "
+            "grade band flags delay dim signal rate_hz filter_cutoff_hz filter_order").split()
 
 
 @pytest.fixture(scope="module")
