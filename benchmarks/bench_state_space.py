@@ -314,7 +314,7 @@ def main() -> None:
                                  f"{res['cpu'] / max(ours['cpu'], 1e-9):5.1f}x")
                     flag = {True: "yes", False: "no", None: "-"}[ok]
                     print(f"{series:10s} {n:6d} {op:5s} {lib:18s} {fmt(value):>34s} "
-                          f"{res['wall']:8.2f} {res['cpu']:8.2f} {res['peak_mb']:7.0f} "
+                          f"{res['wall']:8.4f} {res['cpu']:8.4f} {res['peak_mb']:7.0f} "
                           f"{ratio:>13s} {flag}", flush=True)
                     summary.append((series, n, op, lib, res["wall"], res["cpu"], ok))
     print("\nBar per operation: the fastest reference that gave the right answer "
