@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import math
 import os
+import threading
 from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
@@ -40,6 +41,29 @@ def _threads() -> int:
         return max(1, len(os.sched_getaffinity(0)))
     except AttributeError:  # pragma: no cover - not Linux
         return max(1, os.cpu_count() or 1)
+
+
+_POOL: ThreadPoolExecutor | None = None
+_POOL_LOCK = threading.Lock()
+
+
+def _pool(threads: int) -> ThreadPoolExecutor:
+    """One shared pool of search threads (starting threads per call costs ~0.1 ms)."""
+    global _POOL
+    with _POOL_LOCK:
+        if _POOL is None or _POOL._max_workers < threads:
+            _POOL = ThreadPoolExecutor(threads, thread_name_prefix="echoreo-neighbours")
+        return _POOL
+
+
+def _forget_pool() -> None:
+    """A forked child has none of its parent's threads: it makes its own pool."""
+    global _POOL, _POOL_LOCK
+    _POOL = None
+    _POOL_LOCK = threading.Lock()
+
+
+os.register_at_fork(after_in_child=_forget_pool)
 
 
 @njit(cache=True, nogil=True)
@@ -240,6 +264,21 @@ def _bucket(cx, cy, m1, counts, points):  # pragma: no cover - compiled
     return start, order, pts, scx, scy
 
 
+@njit(cache=True, nogil=True)
+def _bounds(pts):  # pragma: no cover - compiled
+    """Least value (2,) and range (2,) of the first two coordinates, in one pass."""
+    low = np.full(2, np.inf)
+    high = np.full(2, -np.inf)
+    for i in range(pts.shape[0]):
+        for k in range(2):
+            v = pts[i, k]
+            if v < low[k]:
+                low[k] = v
+            if v > high[k]:
+                high[k] = v
+    return low, high - low
+
+
 def _grid(points: np.ndarray):
     """Boxes over the first two coordinates, sized for about three points per occupied box.
 
@@ -248,8 +287,7 @@ def _grid(points: np.ndarray):
     three times) by the measured occupancy, since delay vectors fill a thin set.
     """
     n = points.shape[0]
-    low = points[:, :2].min(axis=0)
-    span = points[:, :2].max(axis=0) - low
+    low, span = _bounds(points)
     live = span > 0.0
     if not live.any():
         return None
@@ -385,6 +423,5 @@ def _grid_nearest(points: np.ndarray, p: float,
     if threads == 1:
         ok = run(0)
     else:
-        with ThreadPoolExecutor(threads) as pool:
-            ok = all(pool.map(run, range(threads)))
+        ok = all(_pool(threads).map(run, range(threads)))
     return (idx, dist) if ok else None
