@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import itertools
 from datetime import datetime
 
 import numpy as np
@@ -72,13 +73,21 @@ def test_no_skipping_fires_missed_ticks():
 
 
 def test_real_clock_records_lateness():
-    """On the real clock a few ticks run and each one's lateness is recorded (not judged)."""
+    """On the real clock a few ticks run and each one's lateness is recorded (not judged).
+
+    A loaded machine may stall the loop past a deadline; the scheduler then skips the
+    missed deadlines and says so, which is what the test allows for.
+    """
     clock = SessionClock()
     sched = Scheduler(clock, 200.0)
     ticks = list(sched.ticks(5))
-    assert [t.k for t in ticks] == list(range(5))
+    assert ticks[0].k == ticks[0].skipped  # 0 unless the loop stalled before the first
+    ks = [t.k for t in ticks]
+    assert ks == sorted(set(ks))
+    assert ks[-1] + 1 == len(ticks) + sched.skipped
+    assert all(t.k - prev.k == 1 + t.skipped for prev, t in itertools.pairwise(ticks))
     assert all(t.lateness_ns >= 0 and t.t_ns >= t.deadline_ns for t in ticks)
-    assert sched.lateness_ns.shape == (5,)
+    assert sched.lateness_ns.shape == (len(ticks),)
     assert clock.now_ns() > 0 and clock.kind == "real"
     datetime.fromisoformat(clock.utc_start)
 
