@@ -183,6 +183,10 @@ class StreamPair:
         The robot's site it pairs with (mirror: left <-> right).
     rate_hz : float or None
         Expected nominal rate, Hz, when the plan states one.
+    leader_stream : str or None
+        A stream recorded from a sensor on the robot at ``leader_site`` (e.g. the
+        robot's own IMU, published like a follower stream); scoring then uses it as
+        the leader reference instead of the virtual sensor (METHODS.md 2.2).
     """
 
     stream: str
@@ -190,11 +194,15 @@ class StreamPair:
     site: str
     leader_site: str
     rate_hz: float | None = None
+    leader_stream: str | None = None
 
     def as_meta(self) -> dict:
         """Entry of the session file's ``pairs`` meta list."""
-        return {"stream": self.stream, "kind": self.kind, "site": self.site,
+        meta = {"stream": self.stream, "kind": self.kind, "site": self.site,
                 "leader_site": self.leader_site}
+        if self.leader_stream:
+            meta["leader_stream"] = self.leader_stream
+        return meta
 
 
 @dataclass(frozen=True)
@@ -566,7 +574,8 @@ def _streams(ck: _Checker, d: Any, loc: Loc, mode: str) -> list[StreamPair]:
         if not isinstance(s, LDict):
             ck.add(sl, "a stream entry must be a mapping {stream, kind, site}")
             continue
-        ck.unknown_keys(s, {"stream", "kind", "site", "leader_site", "rate_hz"}, "stream entry")
+        ck.unknown_keys(s, {"stream", "kind", "site", "leader_site", "rate_hz", "leader_stream"},
+                        "stream entry")
         name = s.get("stream")
         ok = True
         if not isinstance(name, str) or not _STREAM_NAME.match(name):
@@ -604,8 +613,26 @@ def _streams(ck: _Checker, d: Any, loc: Loc, mode: str) -> list[StreamPair]:
                        "remove leader_site to use the mode's pairing, or change `mode:`")
                 ok = False
         rate = ck.number(s, "rate_hz", None, low=0.0, high=10000.0, unit="Hz", low_open=True)
+        lstream = s.get("leader_stream")
+        if "leader_stream" in s:
+            if not isinstance(lstream, str) or not _STREAM_NAME.match(lstream):
+                ck.add(s.value_loc("leader_stream"),
+                       f"leader stream name {lstream!r} is not a safe identifier",
+                       "letters, digits and underscores, starting with a letter")
+                ok = False
+            elif lstream == name:
+                ck.add(s.value_loc("leader_stream"),
+                       f"stream {name!r} cannot be its own leader reference",
+                       "name the stream of the sensor on the robot")
+                ok = False
         if ok:
-            out.append(StreamPair(name, kind, site, lsite, rate))
+            out.append(StreamPair(name, kind, site, lsite, rate, lstream))
+    followers = {p.stream: p for p in out}
+    for p in out:
+        if p.leader_stream in followers:
+            ck.add(seen[p.stream], f"stream {p.stream!r} names the participant's stream "
+                   f"{p.leader_stream!r} as its leader reference",
+                   "leader_stream must be a sensor on the robot, not one of `streams:`")
     return out
 
 

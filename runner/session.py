@@ -620,11 +620,14 @@ class _Session:
                                     hint="give each source its own `streams:`"))
         simulated_only = all(not f.uses_network for f in self.plan.followers)
         missing = [p.stream for p in self.plan.pairs if p.stream not in names]
+        missing += [p.leader_stream for p in self.plan.pairs
+                    if p.leader_stream and p.leader_stream not in names]
         if missing and simulated_only:
             raise PlanError(Problem(
                 f"the plan expects stream {missing[0]!r} but no follower source announces it "
                 f"(announced: {', '.join(names) or 'none'})", str(self.plan.path),
-                hint="list only streams the sources produce"))
+                hint="list only streams the sources produce (simulated sources record no "
+                     "sensor on the robot, so drop `leader_stream:` with them)"))
         self._missing_at_start = missing
 
     # -- the loop -------------------------------------------------------------

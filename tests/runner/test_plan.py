@@ -201,3 +201,34 @@ def test_mutated_plans_never_crash(tmp_path):
             assert exc.problems and all(p.file for p in exc.problems)
 
     check()
+
+
+def test_leader_stream_of_a_pair(tmp_path):
+    """`leader_stream:` names a sensor on the robot (FORMAT.md section 3); it goes into the
+    pairs meta; a bad name, the pair's own stream or another participant stream is refused
+    with its line."""
+    text = GOOD.replace("site: right_wrist}", "site: right_wrist, leader_stream: robot_imu}")
+    plan = load_plan(_write(tmp_path, text))
+    assert plan.pairs[0].leader_stream == "robot_imu"
+    assert plan.pairs[0].as_meta()["leader_stream"] == "robot_imu"
+    assert "leader_stream" not in plan.pairs[1].as_meta()
+    for bad, words in (("9imu", "not a safe identifier"),
+                       ("right_wrist_imu", "its own leader reference"),
+                       ("head_pose", "participant's stream")):
+        text = GOOD.replace("site: right_wrist}", f"site: right_wrist, leader_stream: {bad}}}")
+        with pytest.raises(PlanError) as info:
+            load_plan(_write(tmp_path, text))
+        (p,) = info.value.problems
+        assert words in p.message and p.line == 13, p
+
+
+def test_simulated_sources_cannot_supply_a_leader_stream(tmp_path):
+    """Simulated sources record no sensor on the robot: the session refuses to start."""
+    from echoreo.runner.session import run_session
+
+    text = GOOD.replace("site: right_wrist}", "site: right_wrist, leader_stream: robot_imu}")
+    plan = load_plan(_write(tmp_path, text))
+    with pytest.raises(PlanError) as info:
+        run_session(plan, out_dir=tmp_path / "out")
+    assert "robot_imu" in str(info.value) and "leader_stream" in str(info.value)
+    assert not list(tmp_path.glob("out/*.sqlite"))  # refused before a file is made

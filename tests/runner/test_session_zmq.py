@@ -23,11 +23,12 @@ TINY = (Path(__file__).parent / "data" / "tiny-raise.yaml").read_text(encoding="
 START_S = 30.0  # bound on a peer's start-up (imports numpy, zmq, the simulator)
 
 
-def _start(tmp_path: Path, command: str, *args: str) -> subprocess.Popen:
-    with open(tmp_path / f"{command}.out", "w") as out:   # the child keeps its own copy
+def _start(tmp_path: Path, command: str, *args: str, tag: str | None = None) -> subprocess.Popen:
+    tag = tag or command  # names the ready and output files (two peers of one command)
+    with open(tmp_path / f"{tag}.out", "w") as out:   # the child keeps its own copy
         return subprocess.Popen([sys.executable, "-m", "echoreo.runner.cli", command,
                                  "--endpoint", "tcp://127.0.0.1:0", "--ready-file",
-                                 str(tmp_path / f"{command}.ready.json"), "--duration", "60",
+                                 str(tmp_path / f"{tag}.ready.json"), "--duration", "60",
                                  *args],
                                 stdout=out, stderr=subprocess.STDOUT, stdin=subprocess.DEVNULL)
 
@@ -102,3 +103,52 @@ followers:
         assert diff.max() - diff.min() < 5e6
     assert len(f.spans()) > 0
     assert os.path.getsize(path) > 0
+
+
+def test_recorded_leader_sensor_named_in_the_plan(tmp_path):
+    """A sensor on the robot, published like a follower stream and named by a pair's
+    `leader_stream:` (FORMAT.md section 3), is recorded, stored in the pairs meta and
+    used by scoring as the leader reference (no fall-back to the virtual sensor)."""
+    from echoreo.scoring import score_session
+
+    bridge = _start(tmp_path, "bridge")
+    pub = _start(tmp_path, "publish")
+    robot_imu = _start(tmp_path, "publish", "--source", "synthetic", "--streams",
+                       "robot_left_wrist_imu", tag="robot-imu")
+    try:
+        ep_bridge = _ready(tmp_path, "bridge", bridge)
+        ep_pub = _ready(tmp_path, "publish", pub)
+        ep_robot = _ready(tmp_path, "robot-imu", robot_imu)
+        (tmp_path / "tiny.yaml").write_text(TINY, encoding="utf-8")
+        (tmp_path / "plan.yaml").write_text(f"""\
+study: zmq-test
+participant: Z02
+consent_recorded: true
+robot: torso-e1
+mode: mirror
+command_rate_hz: 50
+countdown_s: 0.5
+choreographies: [tiny.yaml]
+streams:
+  - {{stream: right_wrist_imu, kind: imu, site: right_wrist,
+      leader_stream: robot_left_wrist_imu}}
+  - {{stream: left_wrist_imu, kind: imu, site: left_wrist}}
+leader: {{adapter: zmq, endpoint: "{ep_bridge}"}}
+followers:
+  - {{adapter: zmq, endpoint: "{ep_pub}"}}
+  - {{adapter: zmq, endpoint: "{ep_robot}"}}
+""", encoding="utf-8")
+        path = run_session(tmp_path / "plan.yaml", out_dir=tmp_path / "out")
+    finally:
+        for proc in (robot_imu, pub, bridge):
+            _stop(proc)
+    f = SessionFile(path)
+    assert f.state == "complete"
+    pairs = {p["stream"]: p for p in f.meta["pairs"]}
+    assert pairs["right_wrist_imu"]["leader_stream"] == "robot_left_wrist_imu"
+    assert "leader_stream" not in pairs["left_wrist_imu"]
+    assert len(f.read_stream("robot_left_wrist_imu")) > 0
+    scores = score_session(path)
+    messages = " ".join(p.message for p in scores.problems)
+    assert "recorded leader stream" not in messages
+    assert set(scores.records["stream"]) == {"right_wrist_imu", "left_wrist_imu"}
