@@ -25,7 +25,7 @@ from __future__ import annotations
 import csv
 import math
 from collections.abc import Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from decimal import Decimal, InvalidOperation
 from pathlib import Path
 from typing import Any
@@ -138,6 +138,9 @@ class StreamMap:
         Nominal rate, Hz (None: estimated as 1 / median sample interval).
     site, leader_site : str or None
         Body site wearing the sensor and the robot site it is compared with.
+    leader_stream : str or None
+        Another stream of the mapping, recorded from a sensor on the robot, that
+        scoring takes as this stream's leader reference (FORMAT.md section 4).
     """
 
     name: str
@@ -149,6 +152,7 @@ class StreamMap:
     rate_hz: float | None = None
     site: str | None = None
     leader_site: str | None = None
+    leader_stream: str | None = None
 
 
 @dataclass(frozen=True)
@@ -223,6 +227,22 @@ class ImportMapping:
                                       streams_doc.value_loc(sname), top_time, base, problems)
                 if s is not None:
                     streams.append(s)
+            by_name = {s.name: s for s in streams}
+            for s in streams:
+                if s.leader_stream is None:
+                    continue
+                where = streams_doc[s.name].value_loc("leader_stream")
+                target = by_name.get(s.leader_stream)
+                if target is None or target is s:
+                    problems.append(where.problem(
+                        f"stream {s.name!r}: leader_stream {s.leader_stream!r} is not another "
+                        "stream of this mapping",
+                        "map the robot's sensor as its own stream (without a site) and name it"))
+                elif target.site:
+                    problems.append(where.problem(
+                        f"stream {s.name!r}: leader_stream {s.leader_stream!r} is a "
+                        "participant stream (it names a site)",
+                        "a leader stream is a sensor on the robot: remove its site"))
         if problems:
             raise InputError(problems)
         text = Path(path).read_text(encoding="utf-8")
@@ -385,7 +405,8 @@ def _stream_from_yaml(name: Any, sdoc: Any, key_loc: Loc, loc: Loc, top_time: Ti
     if not isinstance(sdoc, LDict):
         problems.append(loc.problem(f"stream {name!r} must be a mapping with kind and channels"))
         return None
-    known = {"kind", "channels", "time", "file", "seq", "rate_hz", "site", "leader_site"}
+    known = {"kind", "channels", "time", "file", "seq", "rate_hz", "site", "leader_site",
+             "leader_stream"}
     for key in sdoc:
         if key not in known:
             problems.append(sdoc.key_loc(key).problem(
@@ -442,8 +463,14 @@ def _stream_from_yaml(name: Any, sdoc: Any, key_loc: Loc, loc: Loc, top_time: Ti
     for key, v in (("site", site), ("leader_site", leader_site)):
         if v is not None and not isinstance(v, str):
             problems.append(sdoc.value_loc(key).problem(f"'{key}' must be a body-site name"))
-    return _stream(name, sdoc.get("kind"), channels, tspec, file, seq,
+    lead = sdoc.get("leader_stream")
+    if lead is not None and not isinstance(lead, str):
+        problems.append(sdoc.value_loc("leader_stream").problem(
+            "'leader_stream' must be the name of another stream of this mapping"))
+        lead = None
+    made = _stream(name, sdoc.get("kind"), channels, tspec, file, seq,
                    None if rate is None else float(rate), site, leader_site, key_loc, problems)
+    return made if made is None or lead is None else replace(made, leader_stream=lead)
 
 
 # -- reading tables --------------------------------------------------------------------
@@ -714,7 +741,14 @@ def _stream_samples(sm: StreamMap, path: Path, header: list[str],
 
 
 def stream_pairs(mapping: ImportMapping) -> list[dict[str, Any]]:
-    """``{stream, kind, site, leader_site}`` of the streams that name a site."""
-    return [{"stream": s.name, "kind": s.kind, "site": s.site, "leader_site": s.leader_site}
-            for s in mapping.streams if s.site]
+    """``{stream, kind, site, leader_site[, leader_stream]}`` of the streams naming a site."""
+    out = []
+    for s in mapping.streams:
+        if s.site:
+            pair = {"stream": s.name, "kind": s.kind, "site": s.site,
+                    "leader_site": s.leader_site}
+            if s.leader_stream:
+                pair["leader_stream"] = s.leader_stream
+            out.append(pair)
+    return out
 

@@ -300,3 +300,48 @@ def test_random_tables_never_crash(tmp_path_factory, body):
         FileSource(m, f).connect(None)
     except InputError as exc:
         assert all(p.file for p in exc.problems)
+
+
+LEADER_MAPPING = MAPPING.replace("""    site: right_wrist
+    channels:""", """    site: right_wrist
+    leader_stream: robot_left_wrist_imu
+    channels:""") + """\
+  robot_left_wrist_imu:
+    kind: imu
+    rate_hz: 100
+    channels:
+      acc_x: {column: ax, unit: g}
+      gyro_z: {column: gz, unit: deg/s}
+"""
+
+
+def test_leader_stream_of_an_imported_pair(tmp_path):
+    """A robot sensor imported as its own stream (no site) and named by a pair's
+    `leader_stream:` (FORMAT.md section 4) is recorded and stored in the pairs meta."""
+    rng = np.random.default_rng(13)
+    data = tmp_path / "wrist.csv"
+    _table(data, rng)
+    (tmp_path / "map.yaml").write_text(LEADER_MAPPING, encoding="utf-8")
+    mapping = ImportMapping.from_yaml(tmp_path / "map.yaml")
+    out = tmp_path / "P08.sqlite"
+    record_import(out, load_choreography(CHOREOGRAPHY), FileSource(mapping, data),
+                  participant="P08", study="offline", mode="mirror", rate_hz=50.0)
+    with SessionFile(out) as sf:
+        pairs = {p["stream"]: p for p in sf.meta["pairs"]}
+        assert set(pairs) == {"right_wrist_imu", "head_pose"}  # the robot's IMU is no pair
+        assert pairs["right_wrist_imu"]["leader_stream"] == "robot_left_wrist_imu"
+        assert len(sf.read_stream("robot_left_wrist_imu")) == 400
+
+
+@pytest.mark.parametrize(("old", "new", "what"), [
+    ("leader_stream: robot_left_wrist_imu", "leader_stream: nowhere", "not another stream"),
+    ("leader_stream: robot_left_wrist_imu", "leader_stream: head_pose", "participant stream"),
+    ("leader_stream: robot_left_wrist_imu", "leader_stream: [a]", "must be the name"),
+])
+def test_bad_leader_stream_is_located(tmp_path, old, new, what):
+    f = tmp_path / "map.yaml"
+    f.write_text(LEADER_MAPPING.replace(old, new), encoding="utf-8")
+    with pytest.raises(InputError) as info:
+        ImportMapping.from_yaml(f)
+    (problem,) = [p for p in info.value.problems if what in p.message]
+    assert problem.file == str(f) and problem.line == 8
