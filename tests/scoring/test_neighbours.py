@@ -132,3 +132,18 @@ def test_fallback_to_the_kd_tree_gives_the_same_distances(monkeypatch):
     _idx, dist = nearest_other(points)
     ref, _ = cKDTree(points).query(points, k=2)
     np.testing.assert_allclose(dist, ref[:, 1], rtol=1e-12)
+
+
+def test_concurrent_callers_share_the_thread_pool_safely():
+    """Callers in several threads at once (as in a Dask worker) get the single-caller
+    answer; the search threads are shared, never nested."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    rng = np.random.default_rng(31)
+    sets = [np.ascontiguousarray(embed(np.cumsum(rng.standard_normal(9000)), 3, 7))
+            for _ in range(4)]
+    alone = [nearest_other(s)[1] for s in sets]
+    with ThreadPoolExecutor(4) as callers:
+        together = list(callers.map(lambda s: nearest_other(s)[1], sets))
+    for a, b in zip(alone, together, strict=True):
+        np.testing.assert_array_equal(a, b)
