@@ -1,22 +1,26 @@
-"""Recurrence quantification analysis (Marwan et al. 2007), computed blockwise and sparsely.
+"""Recurrence quantification analysis (Marwan et al. 2007), row by row in compiled kernels.
 
-The recurrence matrix is never stored. Rows are processed in blocks; each block's
-recurrences are found by a sweep over the coordinate of largest spread (only
-pairs whose gap in that coordinate is within the radius are compared), placed
-in a boolean block of ``(rows + 2) x (m + 2)`` cells, and turned into the
-lengths of vertical lines (complete within a block) and the starts and ends of
-diagonal lines; diagonal lines that cross a block boundary are carried as one
-open start row per diagonal. Peak memory is therefore set by the block size,
-not by N^2 (see ``_CELL_BUDGET`` and ``_POINT_BUDGET``).
+The recurrence matrix is never stored. Rows are processed in order; the recurrent
+columns of a row are found among the points of a few strips of the coordinate of
+largest spread, each sorted by the coordinate of second largest spread, so only
+pairs within the radius in both coordinates are compared. They are set in a bit
+row, from which the vertical lines (runs of set bits) are counted and, against
+the previous row's bits, the diagonal lines that start and end (one start row
+kept per diagonal). Work grows with the recurrences and the lines, memory with
+N. Rows are split into parts run on separate threads; lines that cross a split
+are joined afterwards.
 """
 
 from __future__ import annotations
 
+import itertools
 import math
+import os
 from concurrent.futures import ThreadPoolExecutor
 from typing import Literal
 
 import numpy as np
+from numba import njit
 
 from echoreo.errors import ScoringInputError
 from echoreo.scoring._checks import as_points, check_positive_int
@@ -27,52 +31,42 @@ __all__ = ["RQA_KEYS", "recurrence_radius", "rqa"]
 RQA_KEYS = ("RR", "DET", "L", "Lmax", "ENTR", "LAM", "TT")
 
 Norm = Literal["max", "euclidean", "manhattan"]
+_NORM_CODES = {"max": 0, "euclidean": 1, "manhattan": 2}
 
-#: Cells of one boolean row block (32 MiB); bounds memory when recurrences are sparse.
-_CELL_BUDGET = 1 << 25
-#: Recurrence points of one row block; bounds memory when recurrences are dense.
-_POINT_BUDGET = 1 << 21
-#: Rows compared at once in the sweep (they are consecutive in the sweep order).
-_GROUP = 32
 #: Largest number of row and column samples used to pick a radius from a recurrence rate.
 _RADIUS_ROWS = 600
 _RADIUS_COLS = 4000
+#: Strip width as a fraction of the radius (a row looks at about 2 / fraction + 1 strips).
+_STRIP_FRACTION = 0.5
+#: Most strips, whatever the radius.
+_MAX_STRIPS = 4096
+#: Threads at most (scoring runs inside Dask or pool workers: two keep it polite).
+_MAX_THREADS = 2
+#: Below this many matrix cells one thread does the work (starting one costs more).
+_PARALLEL_FROM = 2_000_000
+
+# Bit position of the lowest set bit of a uint64 by de Bruijn multiplication
+# (Leiserson, Prokop & Randall 1998, "Using de Bruijn sequences to index a 1 in a
+# computer word"): the top six bits of lowbit * _DEBRUIJN index _DEBRUIJN_TABLE.
+_DEBRUIJN = np.uint64(0x03F79D71B4CB0A89)
+_DEBRUIJN_TABLE = np.zeros(64, dtype=np.int64)
+for _bit in range(64):
+    _DEBRUIJN_TABLE[((1 << _bit) * 0x03F79D71B4CB0A89 % (1 << 64)) >> 58] = _bit
+del _bit
+
+
+def _threads() -> int:
+    try:
+        cpus = len(os.sched_getaffinity(0))
+    except AttributeError:  # pragma: no cover - not Linux
+        cpus = os.cpu_count() or 1
+    return max(1, min(cpus, _MAX_THREADS))
 
 
 def _check_norm(norm: str) -> str:
-    if norm not in ("max", "euclidean", "manhattan"):
+    if norm not in _NORM_CODES:
         raise ScoringInputError(f"norm must be 'max', 'euclidean' or 'manhattan'; got {norm!r}")
     return norm
-
-
-def _pair_distances(a: np.ndarray, b: np.ndarray, norm: str) -> np.ndarray:
-    """Distances between every row of ``a`` (g, m) and every row of ``b`` (w, m).
-
-    Computed in row chunks with in-place operations (no large temporaries).
-    """
-    out = np.empty((a.shape[0], b.shape[0]))
-    b_t = np.ascontiguousarray(b.T)
-    chunk = max(1, (1 << 18) // max(b.shape[0], 1))
-    tmp = np.empty((min(chunk, a.shape[0]), b.shape[0]))
-    for r0 in range(0, a.shape[0], chunk):
-        rows = a[r0 : r0 + chunk]
-        acc = out[r0 : r0 + chunk]
-        gap = tmp[: rows.shape[0]]
-        for k in range(a.shape[1]):
-            target = acc if k == 0 else gap
-            np.subtract.outer(rows[:, k], b_t[k], out=target)
-            if norm == "euclidean":
-                np.multiply(target, target, out=target)
-            else:
-                np.abs(target, out=target)
-            if k:
-                if norm == "max":
-                    np.maximum(acc, gap, out=acc)
-                else:
-                    acc += gap
-        if norm == "euclidean":
-            np.sqrt(acc, out=acc)
-    return out
 
 
 def _inputs(x: object, y: object) -> tuple[np.ndarray, np.ndarray, bool]:
@@ -96,6 +90,262 @@ def _window_cells(n: int, m: int, theiler: int) -> int:
         hi = min(n, m - offset)
         total += max(0, hi - lo)
     return total
+
+
+# ---------------------------------------------------------------- compiled kernels
+
+
+@njit(cache=True, nogil=True)
+def _distance_row(xs, i, yt, norm, out):  # pragma: no cover - compiled
+    """Distances of x_i to every column of ``yt`` (m, c), coordinates in order and
+    differences taken as x - y (the same floating-point values as :func:`_count_rows`
+    compares, before the square root of the Euclidean norm)."""
+    out[:] = 0.0
+    for k in range(yt.shape[0]):
+        xk = xs[i, k]
+        row = yt[k]
+        if norm == 0:
+            for c in range(row.shape[0]):
+                out[c] = max(out[c], abs(xk - row[c]))
+        elif norm == 1:
+            for c in range(row.shape[0]):
+                gap = xk - row[c]
+                out[c] += gap * gap
+        else:
+            for c in range(row.shape[0]):
+                out[c] += abs(xk - row[c])
+    if norm == 1:
+        for c in range(out.shape[0]):
+            out[c] = math.sqrt(out[c])
+
+
+@njit(cache=True, nogil=True)
+def _sampled_distances(xs, rows, yt, cols, theiler, norm, out):  # pragma: no cover - compiled
+    """Distances of the pairs (rows[r], cols[c]) outside the Theiler window, into ``out``;
+    returns how many. ``yt`` (m, cols.size) holds the columns' points."""
+    row = np.empty(cols.shape[0])
+    count = 0
+    for r in range(rows.shape[0]):
+        _distance_row(xs, rows[r], yt, norm, row)
+        for c in range(cols.shape[0]):
+            if theiler > 0 and abs(rows[r] - cols[c]) < theiler:
+                continue
+            out[count] = row[c]
+            count += 1
+    return count
+
+
+@njit(cache=True, nogil=True)
+def _bracket(xs, rows, yt, cols, theiler, norm, lo, hi, out):  # pragma: no cover - compiled
+    """Of the sampled distances: how many are below ``lo``, and those in [lo, hi] put into
+    ``out``; returns (below, inside), inside = -1 when ``out`` is too small."""
+    row = np.empty(cols.shape[0])
+    below = 0
+    inside = 0
+    for r in range(rows.shape[0]):
+        _distance_row(xs, rows[r], yt, norm, row)
+        for c in range(cols.shape[0]):
+            d = row[c]
+            if d > hi or (theiler > 0 and abs(rows[r] - cols[c]) < theiler):
+                continue
+            if d < lo:
+                below += 1
+            else:
+                if inside == out.shape[0]:
+                    return below, -1
+                out[inside] = d
+                inside += 1
+    return below, inside
+
+
+@njit(cache=True, nogil=True)
+def _strip_of(v, origin, width, n_strips):  # pragma: no cover - compiled
+    """Strip index of coordinate value v; monotone in v, clipped to 0 .. n_strips - 1."""
+    q = (v - origin) / width
+    if q < 0.0:
+        return 0
+    if q >= n_strips - 1:
+        return n_strips - 1
+    return int(q)
+
+
+@njit(cache=True, nogil=True)
+def _strips(values, origin, width, n_strips):  # pragma: no cover - compiled
+    out = np.empty(values.shape[0], dtype=np.int64)
+    for c in range(values.shape[0]):
+        out[c] = _strip_of(values[c], origin, width, n_strips)
+    return out
+
+
+@njit(cache=True, nogil=True)
+def _first_above(keys, lo, hi, value, past_equal):  # pragma: no cover - compiled
+    """First index c in lo .. hi of the ascending ``keys`` with keys[c] >= value, or with
+    keys[c] > value when ``past_equal`` (binary search; hi if there is none)."""
+    while lo < hi:
+        mid = (lo + hi) >> 1
+        if keys[mid] < value or (past_equal and keys[mid] == value):
+            lo = mid + 1
+        else:
+            hi = mid
+    return lo
+
+
+@njit(cache=True, nogil=True)
+def _lowest(bits):  # pragma: no cover - compiled
+    """Position (0-63) of the lowest set bit of a nonzero uint64."""
+    low = bits & (~bits + np.uint64(1))
+    return _DEBRUIJN_TABLE[(low * _DEBRUIJN) >> np.uint64(58)]
+
+
+@njit(cache=True, nogil=True)
+def _count_rows(xs, yt, col_of, strip_start, origin, width, n_strips, ca, cb, radius, reach,
+                norm, theiler, auto, r0, r1, diag_hist, vert_hist, head,
+                tail):  # pragma: no cover - compiled
+    """Line-length histograms of rows r0 .. r1 - 1 of the recurrence plot.
+
+    ``yt`` (m, n_y) holds the columns' points sorted by strip of coordinate ``ca`` and,
+    within a strip, by coordinate ``cb``; ``col_of`` maps a sorted point to its column and
+    ``strip_start`` (n_strips + 1) gives each strip's first sorted point. Vertical
+    lines go to ``vert_hist``; diagonal lines (k = j - i + n - 1) that neither start
+    at row r0 nor are open at row r1 - 1 go to ``diag_hist``; those that start at r0
+    and end inside give their length in ``head[k]``, those open at r1 - 1 in
+    ``tail[k]`` (= r1 - r0 when the line also starts at r0), for joining across parts.
+    """
+    n = xs.shape[0]
+    ny = yt.shape[1]
+    m = xs.shape[1]
+    keys = yt[cb]
+    buf = np.empty(ny)
+    words = ny // 64 + 1  # at least one always-zero bit after column ny - 1
+    cur = np.zeros(words, dtype=np.uint64)
+    prev = np.zeros(words, dtype=np.uint64)
+    start = np.empty(n + ny - 1, dtype=np.int64)
+    one = np.uint64(1)
+    s63 = np.uint64(63)
+    limit = radius * radius if norm == 1 else radius
+    for i in range(r0, r1):
+        cur[:] = 0
+        # Recurrent columns of row i: the strips within reach of x_i[ca], and in each the
+        # points within reach in cb (a binary search), compared in every coordinate.
+        xa = xs[i, ca]
+        xb = xs[i, cb]
+        s_hi = _strip_of(xa + reach, origin, width, n_strips)
+        for s in range(_strip_of(xa - reach, origin, width, n_strips), s_hi + 1):
+            c0 = _first_above(keys, strip_start[s], strip_start[s + 1], xb - reach, False)
+            c1 = _first_above(keys, c0, strip_start[s + 1], xb + reach, True)
+            dist = buf[: c1 - c0]
+            dist[:] = 0.0
+            for k in range(m):
+                xk = xs[i, k]
+                coord = yt[k, c0:c1]
+                if norm == 0:
+                    for c in range(c1 - c0):
+                        dist[c] = max(dist[c], abs(xk - coord[c]))
+                elif norm == 1:
+                    for c in range(c1 - c0):
+                        gap = xk - coord[c]
+                        dist[c] += gap * gap
+                else:
+                    for c in range(c1 - c0):
+                        dist[c] += abs(xk - coord[c])
+            for c in range(c1 - c0):
+                j = col_of[c0 + c]
+                cur[j >> 6] |= np.uint64(dist[c] <= limit) << np.uint64(j & 63)
+        if theiler > 0:
+            for j in range(max(0, i - theiler + 1), min(ny, i + theiler)):
+                cur[j >> 6] &= ~(one << np.uint64(j & 63))
+        # Vertical lines: runs of set bits, a start (no bit before) then an end (none after).
+        open_at = -1
+        for t in range(words):
+            c_w = cur[t]
+            if c_w == 0:
+                continue
+            before = cur[t - 1] >> s63 if t > 0 else np.uint64(0)
+            after = cur[t + 1] << s63 if t + 1 < words else np.uint64(0)
+            starts = c_w & ~((c_w << one) | before)
+            ends = c_w & ~((c_w >> one) | after)
+            while True:
+                if open_at < 0:
+                    if starts == 0:
+                        break
+                    open_at = 64 * t + _lowest(starts)
+                    starts &= starts - one
+                else:
+                    if ends == 0:
+                        break
+                    vert_hist[64 * t + _lowest(ends) - open_at + 1] += 1
+                    ends &= ends - one
+                    open_at = -1
+        if auto and theiler == 0 and i < ny:
+            # The line of identity is never a diagonal line (Marwan et al. 2007).
+            cur[i >> 6] &= ~(one << np.uint64(i & 63))
+        # Diagonal lines: (i, j) starts one if (i - 1, j - 1) is empty; (i - 1, j) ends
+        # one if (i, j + 1) is empty.
+        for t in range(words):
+            c_w = cur[t]
+            p_w = prev[t]
+            if c_w == 0 and p_w == 0:
+                continue
+            if c_w != 0:
+                shifted = (p_w << one) | (prev[t - 1] >> s63 if t > 0 else np.uint64(0))
+                starts = c_w & ~shifted
+                while starts:
+                    start[64 * t + _lowest(starts) - i + n - 1] = i
+                    starts &= starts - one
+            if p_w != 0:
+                shifted = (c_w >> one) | (cur[t + 1] << s63 if t + 1 < words else np.uint64(0))
+                ends = p_w & ~shifted
+                while ends:
+                    k = 64 * t + _lowest(ends) - i + n  # (i - 1, j) lies on j - (i - 1) + n - 1
+                    if start[k] == r0:
+                        head[k] = i - r0
+                    else:
+                        diag_hist[i - start[k]] += 1
+                    ends &= ends - one
+        cur, prev = prev, cur
+    last = r1 - 1
+    for t in range(words):
+        p_w = prev[t]
+        while p_w:
+            k = 64 * t + _lowest(p_w) - last + n - 1
+            tail[k] = r1 - start[k]
+            p_w &= p_w - one
+
+
+# ---------------------------------------------------------------- Python side
+
+
+def _kth_distance(xs: np.ndarray, ys: np.ndarray, rows: np.ndarray, cols: np.ndarray,
+                  theiler: int, norm: int, k: int, total: int) -> float:
+    """The k-th smallest (1-based) of the ``total`` sampled distances, exactly.
+
+    A coarse sub-grid of the sampled pairs brackets the wanted quantile; one pass
+    then counts the distances below the bracket and keeps those inside it, and the
+    answer is selected among those. If the bracket misses (or holds too many), all
+    distances are computed and partitioned.
+    """
+    yt = np.ascontiguousarray(ys[cols].T)
+    if total > 50_000:
+        sub_r, every = rows[:: max(1, rows.size // 100)], max(1, cols.size // 100)
+        sub_c = cols[::every]
+        sample = np.empty(sub_r.size * sub_c.size)
+        got = _sampled_distances(xs, sub_r, np.ascontiguousarray(yt[:, ::every]), sub_c,
+                                 theiler, norm, sample)
+        if got >= 1000:
+            sample = np.sort(sample[:got])
+            q = k / total
+            spread = 6.0 * math.sqrt(got * q * (1.0 - q)) + 16.0
+            a, b = int(q * got - spread), int(q * got + spread)
+            lo = sample[a] if a >= 0 else -math.inf
+            hi = sample[b] if b < got else math.inf
+            room = int(4 * total * (b - a + 1) / got) + 1000
+            inside = np.empty(min(total, room))
+            below, count = _bracket(xs, rows, yt, cols, theiler, norm, lo, hi, inside)
+            if count >= 0 and below < k <= below + count:
+                return float(np.partition(inside[:count], k - below - 1)[k - below - 1])
+    values = np.empty(total)
+    _sampled_distances(xs, rows, yt, cols, theiler, norm, values)
+    return float(np.partition(values, k - 1)[k - 1])
 
 
 def recurrence_radius(x: object, y: object = None, *, recurrence_rate: float,
@@ -129,6 +379,13 @@ def recurrence_radius(x: object, y: object = None, *, recurrence_rate: float,
     -------
     float
         The radius, in the unit of the state vectors.
+
+    Notes
+    -----
+    The distances are computed in a compiled pass and the order statistic is
+    selected exactly, without sorting them all: a sub-grid of about 100 x 100 of
+    the sampled pairs brackets it, and only the distances inside the bracket are
+    kept and partitioned (all of them when the bracket misses).
     """
     xs, ys, _ = _inputs(x, y)
     norm = _check_norm(norm)
@@ -140,282 +397,84 @@ def recurrence_radius(x: object, y: object = None, *, recurrence_rate: float,
                      .round().astype(np.int64))
     cols = np.unique(np.linspace(0, ys.shape[0] - 1, min(ys.shape[0], _RADIUS_COLS))
                      .round().astype(np.int64))
-    dist = _pair_distances(xs[rows], ys[cols], norm)
+    total = rows.size * cols.size
     if theiler > 0:
-        keep = np.abs(rows[:, None] - cols[None, :]) >= theiler
-        values = dist[keep]
-    else:
-        values = dist.ravel()
-    if values.size == 0:
+        # Pairs of the sample inside the window: for each row, the columns in (i - w, i + w).
+        near = (np.searchsorted(cols, rows + theiler, side="left")
+                - np.searchsorted(cols, rows - theiler, side="right"))
+        total -= int(near.sum())
+    if total == 0:
         raise ScoringInputError(
             f"the Theiler window {theiler} excludes every pair of a recurrence plot of "
             f"{xs.shape[0]} x {ys.shape[0]} points"
         )
-    k = min(values.size, max(1, math.ceil(rate * values.size)))
-    return float(np.partition(values, k - 1)[k - 1])
+    k = min(total, max(1, math.ceil(rate * total)))
+    return _kth_distance(xs, ys, rows, cols, theiler, _NORM_CODES[norm], k, total)
 
 
-class _LineCounter:
-    """Blockwise recurrence points and line-length histograms of one recurrence plot.
-
-    Work buffers are allocated once and reused for every block: allocating and
-    releasing large temporaries per block makes the kernel map and unmap pages
-    over and over, which costs more than the arithmetic on a busy machine.
-    """
-
-    def __init__(self, xs: np.ndarray, ys: np.ndarray, radius: float, theiler: int,
-                 auto: bool, norm: str, vmin: int = 2):
-        self.xs, self.ys = xs, ys
-        self.n, self.m_cols = xs.shape[0], ys.shape[0]
-        self.radius, self.theiler, self.auto, self.norm = radius, theiler, auto, norm
-        both = np.concatenate([xs, ys]) if not auto else xs
-        # Sweep along the coordinate of largest spread: it prunes the most pairs.
-        self.key = int(np.argmax(both.max(axis=0) - both.min(axis=0)))
-        col_order = np.argsort(ys[:, self.key], kind="stable")
-        # Coordinates of y sorted along the sweep key, one contiguous row per coordinate.
-        self.ys_t = np.ascontiguousarray(ys[col_order].T)
-        self.key_sorted = self.ys_t[self.key]
-        self.col_slot = col_order + 1  # dense-block column of each sorted y
-        self.diag_hist = np.zeros(max(self.n, self.m_cols) + 1, dtype=np.int64)
-        self.vmin = vmin
-        # Vertical lines of at least vmin: their number and their points.
-        self.vert_long_lines = 0
-        self.vert_long_points = 0
-        self.points = 0
-        # Global start row of the diagonal line open at the current block boundary, per
-        # diagonal k = j - i + n (0 .. n + m); -1 where no line is open.
-        self.open_start = np.full(self.n + self.m_cols + 1, -1, dtype=np.int64)
-        self.words = -(-(self.m_cols + 2) // 64)  # 64-bit words per packed row
-        self.stride = 64 * self.words
-        self.max_rows = max(1, min(self.n, _CELL_BUDGET // self.stride))
-        cells = _GROUP * self.m_cols
-        self._gap = np.empty(cells)
-        self._mask = np.empty(cells, dtype=bool)
-        self._tmp = np.empty(cells, dtype=bool)
-        size = (self.max_rows + 2) * self.words
-        self._w = [np.empty(size, dtype=np.uint64) for _ in range(6)]
-        self._count8 = np.empty(size, dtype=np.uint8)
-        self._dense = [np.empty((self.max_rows + 2) * self.stride, dtype=bool) for _ in range(2)]
-
-    def _within(self, pts: np.ndarray, c0: int, c1: int) -> np.ndarray:
-        """Boolean (g, c1 - c0): point i within the radius of sorted column c0 + j."""
-        g, w = pts.shape[0], c1 - c0
-        gap = self._gap[: g * w].reshape(g, w)
-        mask = self._mask[: g * w].reshape(g, w)
-        tmp = self._tmp[: g * w].reshape(g, w)
-        r = self.radius
-        cols = self.ys_t[:, c0:c1]
-        if self.norm == "max":
-            for k in range(pts.shape[1]):
-                np.subtract.outer(pts[:, k], cols[k], out=gap)
-                np.abs(gap, out=gap)
-                np.less_equal(gap, r, out=mask if k == 0 else tmp)
-                if k:
-                    mask &= tmp
-            return mask
-        acc = np.zeros((g, w))
-        for k in range(pts.shape[1]):
-            np.subtract.outer(pts[:, k], cols[k], out=gap)
-            if self.norm == "euclidean":
-                np.multiply(gap, gap, out=gap)
-            else:
-                np.abs(gap, out=gap)
-            acc += gap
-        np.less_equal(acc, r * r if self.norm == "euclidean" else r, out=mask)
-        return mask
-
-    def _fill(self, dense: np.ndarray, lo: int, hi: int, first: int) -> None:
-        """Mark the recurrences of rows lo..hi-1 in ``dense`` (row r at ``r - first``,
-        column j at ``j + 1``)."""
-        rows = np.arange(lo, hi)
-        order = rows[np.argsort(self.xs[lo:hi, self.key], kind="stable")]
-        r = self.radius
-        for g in range(0, order.shape[0], _GROUP):
-            grp = order[g : g + _GROUP]
-            kv = self.xs[grp, self.key]
-            c0 = int(np.searchsorted(self.key_sorted, kv.min() - r, side="left"))
-            c1 = int(np.searchsorted(self.key_sorted, kv.max() + r, side="right"))
-            if c1 <= c0:
-                continue
-            mask = self._within(self.xs[grp], c0, c1)
-            dense[(grp - first)[:, None], self.col_slot[None, c0:c1]] = mask
-        if self.theiler > 0:
-            # Clear the Theiler band |i - j| < w of these rows.
-            for offset in range(-(self.theiler - 1), self.theiler):
-                cols = rows + offset
-                ok = (cols >= 0) & (cols < self.m_cols)
-                dense[rows[ok] - first, cols[ok] + 1] = False
-
-    def run(self) -> None:
-        n = self.n
-        rows_per_block = min(self.max_rows, 64)
-        # The dense block of the next rows is filled on a second thread while this one
-        # counts lines (numpy releases the GIL in both); two dense buffers alternate.
-        with ThreadPoolExecutor(max_workers=1) as pool:
-            a, slot = 0, 0
-            b = min(n, a + rows_per_block)
-            pending = pool.submit(self._dense_block, a, b, slot)
-            while a < n:
-                dense = pending.result()
-                points = int(np.count_nonzero(dense))
-                per_row = max(points / (b - a + 2), 1.0)
-                rows_per_block = int(max(1, min(self.max_rows, _POINT_BUDGET / per_row)))
-                a_next, b_next = b, min(n, b + rows_per_block)
-                if a_next < n:
-                    pending = pool.submit(self._dense_block, a_next, b_next, 1 - slot)
-                self._count(dense, a, b)
-                a, b, slot = a_next, b_next, 1 - slot
-
-    def _dense_block(self, a: int, b: int, slot: int) -> np.ndarray:
-        """Boolean block of rows a-1 .. b (zero rows outside the plot), padded columns."""
-        dense = self._dense[slot][: (b - a + 2) * self.stride].reshape(b - a + 2, self.stride)
-        dense.fill(False)
-        self._fill(dense, max(0, a - 1), min(self.n, b + 1), a - 1)
-        return dense
-
-    def _popcount(self, words: np.ndarray) -> int:
-        if hasattr(np, "bitwise_count"):
-            out = self._count8[: words.size]
-            np.bitwise_count(words, out=out)
-            return int(out.sum(dtype=np.int64))
-        return _popcount(words)
-
-    def _count(self, dense: np.ndarray, a: int, b: int) -> None:
-        rows, words = b - a, self.words
-        packed = np.packbits(dense, axis=None, bitorder="little").view("<u8")
-        size = packed.size
-        left, right, t1, t2, t3, t4 = (w[:size] for w in self._w)
-        own = slice(words, (rows + 1) * words)
-        self.points += self._popcount(packed[own])
-        _shift_up(packed, 1, left, t1)     # bit c holds column c - 1
-        _shift_down(packed, 1, right, t1)  # bit c holds column c + 1
-        self._count_vertical(packed, own, t1, t2, t3, t4)
-        n_own = rows * words
-        diag = t4[:n_own]
-        np.copyto(diag, packed[own])
-        if self.auto and self.theiler == 0:
-            # The line of identity is never a diagonal line (Marwan et al. 2007).
-            col = np.arange(a, b) + 1
-            where = np.arange(rows) * words + col // 64
-            diag[where] &= ~(np.uint64(1) << (col % 64).astype(np.uint64))
-        d_start = t1[:n_own]
-        np.invert(left[:n_own], out=d_start)            # no point up-left of it
-        d_start &= diag
-        d_end = t2[:n_own]
-        np.invert(right[2 * words : (rows + 2) * words], out=d_end)  # none down-right
-        d_end &= diag
-        # Isolated points (lines of length 1) are only counted; longer lines are followed.
-        work = t3[:n_own]
-        np.bitwise_and(d_start, d_end, out=work)
-        self.diag_hist[1] += self._popcount(work)
-        np.invert(d_end, out=work)
-        work &= d_start
-        self._follow_diagonals(dense.ravel(), _bit_positions(work) + words * 64, a, b)
-
-    def _follow_diagonals(self, flat: np.ndarray, starts: np.ndarray, a: int, b: int) -> None:
-        """Lengths of the diagonal lines starting in rows a..b-1 or carried into row a.
-
-        Every line is followed down-right one step per pass (all lines at once) until
-        its next cell is empty; a line still going at row b is carried to the next
-        block as its start row. Work is one look-up per line point.
-        """
-        n, stride = self.n, self.stride
-        carried = np.flatnonzero(self.open_start >= 0)
-        # Continuation cells at row a (dense row 1) of the lines carried in.
-        carried_pos = stride + (a + carried - n) + 1
-        pos = np.concatenate([carried_pos, starts])
-        row = pos // stride - 1 + a  # global row of the current cell
-        origin = np.concatenate([self.open_start[carried], row[carried.size :]])
-        self.open_start[carried] = -1
-        finished: list[np.ndarray] = []
-        while pos.size:
-            pos += stride + 1  # the next cell down-right
-            going = flat[pos]
-            ended = ~going
-            if ended.any():
-                finished.append(row[ended] - origin[ended] + 1)
-            row += 1
-            beyond = going & (row == b)  # continues in the next block
-            if beyond.any():
-                k = (pos[beyond] % stride) - 1 - row[beyond] + n
-                self.open_start[k] = origin[beyond]
-                going &= ~beyond
-            pos, row, origin = pos[going], row[going], origin[going]
-        if finished:
-            lengths = np.concatenate(finished)
-            self.diag_hist += np.bincount(lengths, minlength=self.diag_hist.size)[
-                : self.diag_hist.size]
-
-    def _count_vertical(self, packed: np.ndarray, own: slice, t1: np.ndarray, t2: np.ndarray,
-                        t3: np.ndarray, t4: np.ndarray) -> None:
-        """Vertical lines (fixed row i, consecutive columns j) without listing them.
-
-        With ``E`` the points whose ``vmin - 1`` left neighbours are all recurrent, the
-        lines of length >= vmin are the runs of ``E`` (one start each) and their points are
-        ``E`` spread ``vmin - 1`` columns back; both are bit counts.
-        """
-        vmin = self.vmin
-        if vmin > 32:
-            _shift_up(packed, 1, t1, t2)
-            np.invert(t1, out=t1)
-            t1 &= packed
-            _shift_down(packed, 1, t3, t2)
-            np.invert(t3, out=t3)
-            t3 &= packed
-            lengths = _bit_positions(t3[own]) - _bit_positions(t1[own]) + 1
-            long = lengths[lengths >= vmin]
-            self.vert_long_lines += int(long.size)
-            self.vert_long_points += int(long.sum())
-            return
-        eroded = t3
-        np.copyto(eroded, packed)
-        for s in range(1, vmin):
-            _shift_up(packed, s, t1, t2)
-            eroded &= t1
-        _shift_up(eroded, 1, t1, t2)
-        np.invert(t1, out=t1)
-        t1 &= eroded
-        self.vert_long_lines += self._popcount(t1[own])
-        spread = t4
-        np.copyto(spread, eroded)
-        for s in range(1, vmin):
-            _shift_down(eroded, s, t1, t2)
-            spread |= t1
-        self.vert_long_points += self._popcount(spread[own])
+def _row_bounds(n: int, cells: int) -> list[int]:
+    """Row boundaries of the parts run on separate threads: equal shares of the rows."""
+    parts = _threads() if cells >= _PARALLEL_FROM else 1
+    parts = max(1, min(parts, n))
+    return [n * p // parts for p in range(parts + 1)]
 
 
-def _popcount(words: np.ndarray) -> int:
-    """Number of set bits in a uint64 array."""
-    if hasattr(np, "bitwise_count"):
-        return int(np.bitwise_count(words).sum(dtype=np.int64))
-    return int(np.unpackbits(words.view(np.uint8)).sum(dtype=np.int64))
+def _line_histograms(xs: np.ndarray, ys: np.ndarray, radius: float, theiler: int, auto: bool,
+                     norm: str) -> tuple[np.ndarray, np.ndarray]:
+    """Histograms of diagonal and vertical line lengths, each of size max(n_x, n_y) + 1."""
+    n, ny = xs.shape[0], ys.shape[0]
+    both = xs if auto else np.concatenate([xs, ys])
+    spread = both.max(axis=0) - both.min(axis=0)
+    order = np.argsort(-spread, kind="stable")
+    ca = int(order[0])
+    cb = int(order[1]) if order.size > 1 else ca
+    # Reach: the radius widened by far more than rounding, so that no pair within the
+    # radius is missed by a strip or a binary search; every candidate is then decided
+    # by the exact comparison of the distance with the radius.
+    reach = radius * (1.0 + 1e-9) + 1e-12 * float(np.abs(both).max())
+    origin = float(both[:, ca].min())
+    width = max(_STRIP_FRACTION * radius, float(spread[ca]) / _MAX_STRIPS)
+    if not width > 0.0:
+        width = 1.0
+    n_strips = int(min(_MAX_STRIPS, float(spread[ca]) / width)) + 1
+    strip = _strips(np.ascontiguousarray(ys[:, ca]), origin, width, n_strips)
+    sort = np.lexsort((ys[:, cb], strip))
+    yt = np.ascontiguousarray(ys[sort].T)
+    strip_start = np.searchsorted(strip[sort], np.arange(n_strips + 1)).astype(np.int64)
+    col_of = sort.astype(np.int64)
+    size = max(n, ny) + 1
+    bounds = _row_bounds(n, n * ny)
+    parts = []
+    for r0, r1 in itertools.pairwise(bounds):
+        parts.append((r0, r1, np.zeros(size, np.int64), np.zeros(size, np.int64),
+                      np.zeros(n + ny - 1, np.int64), np.zeros(n + ny - 1, np.int64)))
 
+    def run(part: tuple) -> None:
+        r0, r1, diag, vert, head, tail = part
+        _count_rows(xs, yt, col_of, strip_start, origin, width, n_strips,
+                    ca, cb, radius, reach, _NORM_CODES[norm], theiler, auto, r0, r1,
+                    diag, vert, head, tail)
 
-def _shift_up(words: np.ndarray, s: int, out: np.ndarray, tmp: np.ndarray) -> np.ndarray:
-    """Bit string moved ``s`` (1 to 63) bits towards higher positions (bit c takes c - s),
-    written into ``out``; ``tmp`` is scratch of the same length."""
-    np.left_shift(words, np.uint64(s), out=out)
-    np.right_shift(words[:-1], np.uint64(64 - s), out=tmp[1:])
-    out[1:] |= tmp[1:]
-    return out
-
-
-def _shift_down(words: np.ndarray, s: int, out: np.ndarray, tmp: np.ndarray) -> np.ndarray:
-    """Bit string moved ``s`` (1 to 63) bits towards lower positions (bit c takes c + s),
-    written into ``out``; ``tmp`` is scratch of the same length."""
-    np.right_shift(words, np.uint64(s), out=out)
-    np.left_shift(words[1:], np.uint64(64 - s), out=tmp[:-1])
-    out[:-1] |= tmp[:-1]
-    return out
-
-
-def _bit_positions(words: np.ndarray) -> np.ndarray:
-    """Ascending positions of the set bits of a little-endian uint64 bit string."""
-    idx = np.flatnonzero(words)
-    if idx.size == 0:
-        return np.empty(0, dtype=np.int64)
-    flat = np.flatnonzero(np.unpackbits(words[idx].view(np.uint8), bitorder="little").view(bool))
-    return idx[flat >> 6] * 64 + (flat & 63)
+    if len(parts) == 1:
+        run(parts[0])
+    else:
+        with ThreadPoolExecutor(max_workers=min(len(parts) - 1, _MAX_THREADS)) as pool:
+            done = [pool.submit(run, part) for part in parts[1:]]
+            run(parts[0])
+            for future in done:
+                future.result()
+    # Join the diagonal lines across the parts: a line open at a part's last row goes
+    # on in the next part's line that starts at its first row (same diagonal).
+    diag = np.sum([p[2] for p in parts], axis=0)
+    vert = np.sum([p[3] for p in parts], axis=0)
+    carry = np.zeros(n + ny - 1, np.int64)
+    for r0, r1, _, _, head, tail in parts:
+        whole = tail == r1 - r0
+        joined = np.where(head > 0, carry + head, carry)[~whole]
+        diag += np.bincount(joined[joined > 0], minlength=size)
+        carry = np.where(whole, carry + tail, tail)
+    diag += np.bincount(carry[carry > 0], minlength=size)
+    return diag, vert
 
 
 def _ratio(num: float, den: float) -> float:
@@ -500,9 +559,14 @@ def rqa(x: object, y: object = None, *, radius: float | None = None,
 
     Notes
     -----
-    Memory grows with the row block (at most 32 MiB of booleans and 2 M points
-    at once), never with :math:`n_x n_y`. Time grows with the number of pairs
-    whose gap in the swept coordinate is within :math:`\varepsilon`.
+    Computed row by row in a compiled kernel without storing the matrix: the
+    recurrent columns of row :math:`i` are searched among the points within
+    :math:`\varepsilon` of :math:`\mathbf{x}_i` in the two coordinates of largest
+    spread (strips of one, sorted by the other), set in a bit row, and the lines
+    are counted from that row and the previous one. Time grows with the number of
+    pairs compared (a small multiple of the recurrences) and the number of lines,
+    memory with :math:`n_x + n_y`. Large plots are split into two row ranges run
+    on two threads; lines crossing the split are joined.
 
     References
     ----------
@@ -528,19 +592,19 @@ def rqa(x: object, y: object = None, *, radius: float | None = None,
             f"the Theiler window {theiler} excludes every pair of a recurrence plot of "
             f"{xs.shape[0]} x {ys.shape[0]} points"
         )
-    counter = _LineCounter(xs, ys, radius, theiler, auto, norm, vmin)
-    counter.run()
-    d_hist = counter.diag_hist
-    d_len = np.arange(d_hist.size)
-    d_long = d_hist[lmin:]
-    v_points = float(counter.vert_long_points)
-    nonzero = np.flatnonzero(d_hist)
+    diag_hist, vert_hist = _line_histograms(xs, ys, radius, theiler, auto, norm)
+    length = np.arange(diag_hist.size)
+    d_long = diag_hist[lmin:]
+    d_long_points = float(length[lmin:] @ d_long)
+    points = int(length @ vert_hist)  # every recurrence lies on one vertical line
+    v_points = float(length[vmin:] @ vert_hist[vmin:])
+    nonzero = np.flatnonzero(diag_hist)
     return {
-        "RR": counter.points / pairs,
-        "DET": _ratio(float(d_len[lmin:] @ d_long), float(d_len @ d_hist)),
-        "L": _ratio(float(d_len[lmin:] @ d_long), float(d_long.sum())),
+        "RR": points / pairs,
+        "DET": _ratio(d_long_points, float(length @ diag_hist)),
+        "L": _ratio(d_long_points, float(d_long.sum())),
         "Lmax": int(nonzero[-1]) if nonzero.size else 0,
         "ENTR": _entropy(d_long),
-        "LAM": _ratio(v_points, float(counter.points)),
-        "TT": _ratio(v_points, float(counter.vert_long_lines)),
+        "LAM": _ratio(v_points, float(points)),
+        "TT": _ratio(v_points, float(vert_hist[vmin:].sum())),
     }

@@ -1,5 +1,5 @@
 """Short, constant, NaN-containing and multichannel input: a clear message or a documented
-fallback, never a crash; and the blockwise RQA against a brute-force dense computation."""
+fallback, never a crash; and the compiled RQA against a brute-force dense computation."""
 
 import math
 
@@ -126,7 +126,7 @@ def test_pca_errors():
 
 def dense_rqa(x, y, radius, lmin, vmin, theiler, norm):
     """Brute-force RQA from the full recurrence matrix (Marwan et al. 2007 definitions),
-    written independently of the blockwise code: loops over diagonals and rows."""
+    written independently of the compiled code: loops over diagonals and rows."""
     auto = y is None
     y = x if auto else y
     p = {"max": np.inf, "euclidean": 2, "manhattan": 1}[norm]
@@ -181,18 +181,36 @@ def _trajectory(rng, n):
     return np.column_stack([np.sin(t), np.cos(1.3 * t)]) + 0.2 * rng.standard_normal((n, 2))
 
 
-@pytest.mark.parametrize("cells", [1 << 25, 3000, 200], ids=["one-block", "blocks", "tiny"])
+def _bounds(kind, n):
+    """Row boundaries of the parts the line counting is split into (see ``_row_bounds``)."""
+    if kind == "default":
+        return None
+    if kind == "one":
+        return [0, n]
+    if kind == "halves":
+        return [0, n // 2, n]
+    # awkward: a part of one row at each end and in the middle, and uneven parts between
+    cuts = {0, 1, n // 3, n // 3 + 1, n - 1, n} if n > 3 else {0, n}
+    return sorted(cuts)
+
+
+def _split(monkeypatch, kind):
+    if kind != "default":
+        monkeypatch.setattr(recurrence_module, "_row_bounds", lambda n, cells: _bounds(kind, n))
+
+
+@pytest.mark.parametrize("split", ["default", "one", "halves", "awkward"])
 @pytest.mark.parametrize(("cross", "theiler", "norm", "lmin", "vmin"),
                          [(False, 0, "max", 2, 2), (False, 3, "euclidean", 2, 3),
                           (True, 0, "max", 3, 2), (True, 2, "manhattan", 2, 5),
                           (True, 0, "max", 2, 34)],
                          ids=["auto", "auto-theiler3-l2-vmin3", "cross-lmin3",
                               "cross-theiler2-l1-vmin5", "cross-vmin34"])
-def test_blockwise_rqa_equals_dense_brute_force(monkeypatch, cells, cross, theiler, norm, lmin,
-                                                vmin):
-    """Internal check: the blockwise line counting (any block size, lines crossing block
-    boundaries) equals the dense definition. Not an outside reference (see tests/reference)."""
-    monkeypatch.setattr(recurrence_module, "_CELL_BUDGET", cells)
+def test_rqa_equals_dense_brute_force(monkeypatch, split, cross, theiler, norm, lmin, vmin):
+    """Internal check: the row-wise line counting, run in one part or split into parts whose
+    lines are joined, equals the dense definition. Not an outside reference (see
+    tests/reference)."""
+    _split(monkeypatch, split)
     rng = np.random.default_rng(11)
     x = _trajectory(rng, 150)
     y = _trajectory(rng, 131) if cross else None
@@ -201,7 +219,86 @@ def test_blockwise_rqa_equals_dense_brute_force(monkeypatch, cells, cross, theil
     want = dense_rqa(x, y, radius, lmin, vmin, theiler, norm)
     assert got["Lmax"] == want["Lmax"]
     for key in ("RR", "DET", "L", "ENTR", "LAM", "TT"):
-        assert got[key] == pytest.approx(want[key], rel=1e-12), key
+        assert got[key] == pytest.approx(want[key], rel=1e-12, nan_ok=True), key
+
+
+def _random_case(rng):
+    """A small random recurrence problem: smooth, noisy or integer-valued points (the last
+    with many distances exactly equal to the radius), auto or cross, any norm and window."""
+    n, m = int(rng.integers(1, 90)), int(rng.integers(1, 5))
+    kind = int(rng.integers(3))
+    if kind == 0:
+        def make(k):
+            return rng.integers(0, 4, (k, m)).astype(float)
+        radius = float(rng.integers(0, 4))
+    else:
+        noise = 0.05 if kind == 1 else 0.6
+        step = rng.uniform(0.02, 0.4)
+
+        def make(k):
+            t = np.arange(k) * step
+            return (np.column_stack([np.sin(t + c) for c in range(m)])
+                    + noise * rng.standard_normal((k, m)))
+        radius = float(rng.uniform(0.0, 1.2))
+    y = make(int(rng.integers(1, 90))) if rng.random() < 0.5 else None
+    return {"x": make(n), "y": y, "radius": radius,
+            "norm": ["max", "euclidean", "manhattan"][int(rng.integers(3))],
+            "theiler": int(rng.integers(0, 4)) if rng.random() < 0.4 else 0,
+            "lmin": int(rng.integers(1, 5)), "vmin": int(rng.integers(1, 5))}
+
+
+@pytest.mark.parametrize("split", ["one", "halves", "awkward"])
+def test_rqa_equals_dense_brute_force_on_random_cases(monkeypatch, split):
+    """Internal check on 150 small random cases (auto and cross, every norm, Theiler
+    windows, lmin and vmin from 1 to 4, ties d = eps): the dense definition, exactly for the
+    integer counts. Not an outside reference."""
+    _split(monkeypatch, split)
+    rng = np.random.default_rng(2026)
+    checked = 0
+    for _ in range(150):
+        case = _random_case(rng)
+        x, y = case.pop("x"), case.pop("y")
+        n_y = x.shape[0] if y is None else y.shape[0]
+        if x.shape[0] * n_y <= recurrence_module._window_cells(x.shape[0], n_y,
+                                                                case["theiler"]):
+            with pytest.raises(ScoringInputError, match="excludes every pair"):
+                rqa(x, y, **case)
+            continue
+        got = rqa(x, y, **case)
+        want = dense_rqa(x, y, case["radius"], case["lmin"], case["vmin"], case["theiler"],
+                         case["norm"])
+        assert got["Lmax"] == want["Lmax"], case
+        for key in ("RR", "DET", "L", "ENTR", "LAM", "TT"):
+            assert got[key] == pytest.approx(want[key], rel=1e-12, nan_ok=True), (key, case)
+        checked += 1
+    assert checked > 120
+
+
+@pytest.mark.parametrize("cross", [False, True], ids=["auto", "cross"])
+def test_split_rows_give_the_single_thread_result(monkeypatch, cross):
+    """Lines crossing the row splits are joined: every split (default threads, halves, many
+    uneven parts, parts of one row) gives exactly the one-part result on a smooth
+    trajectory whose long diagonal lines cross every split."""
+    rng = np.random.default_rng(3)
+
+    def smooth(n):
+        t = np.arange(n) * 0.05
+        return np.column_stack([np.sin(t), np.cos(1.3 * t)]) + 0.01 * rng.standard_normal((n, 2))
+
+    x = smooth(2100)
+    y = smooth(1900) if cross else None
+    kw = {"radius": 0.2, "theiler": 0, "norm": "max"}
+    default = rqa(x, y, **kw)  # 2100 x 2100 cells: two threads on a two-core machine
+    with monkeypatch.context() as patch:
+        patch.setattr(recurrence_module, "_row_bounds", lambda n, cells: [0, n])
+        single = rqa(x, y, **kw)
+    assert default == single
+    assert single["Lmax"] > 100
+    for bounds in ([0, 1050, 2100], [0, 1, 2, 3, 700, 701, 1999, 2100],
+                   [*range(0, 2100, 97), 2100]):
+        with monkeypatch.context() as patch:
+            patch.setattr(recurrence_module, "_row_bounds", lambda n, cells, b=bounds: b)
+            assert rqa(x, y, **kw) == single, bounds
 
 
 def test_recurrence_radius_meets_the_rate_exactly_on_short_input():
