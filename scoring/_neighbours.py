@@ -302,7 +302,16 @@ def _bucket(cx, cy, m1, counts, points):  # pragma: no cover - compiled
     if d >= 3:  # within each box, order the points by their third coordinate
         for b in range(counts.shape[0]):
             a, e = start[b], start[b + 1]
-            if e - a > 1:
+            if 1 < e - a <= 32:  # insertion sort (stable) for the usual small box
+                for i in range(a + 1, e):
+                    o = order[i]
+                    z = points[o, 2]
+                    j = i - 1
+                    while j >= a and points[order[j], 2] > z:
+                        order[j + 1] = order[j]
+                        j -= 1
+                    order[j + 1] = o
+            elif e - a > 32:
                 seg = order[a:e].copy()
                 zs = np.empty(e - a)
                 for i in range(e - a):
@@ -478,7 +487,9 @@ def _grid_nearest(points: np.ndarray, p: float,
     if pilot / len(range(0, n, step)) > _WORK_PER_QUERY:
         return None
     threads = _threads() if n >= _PARALLEL_FROM else 1
-    bounds = np.linspace(0, n, threads + 1).astype(np.int64)
+    # Four chunks per thread, taken in turn, even out regions of unequal work.
+    parts = 1 if threads == 1 else 4 * threads
+    bounds = np.linspace(0, n, parts + 1).astype(np.int64)
 
     def run(part: int) -> bool:
         lo, hi = int(bounds[part]), int(bounds[part + 1])
@@ -488,5 +499,5 @@ def _grid_nearest(points: np.ndarray, p: float,
     if threads == 1:
         ok = run(0)
     else:
-        ok = all(_pool(threads).map(run, range(threads)))
+        ok = all(_pool(threads).map(run, range(parts)))
     return (idx, dist) if ok else None
