@@ -15,6 +15,8 @@ import os
 import signal
 import threading
 import time
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -26,7 +28,7 @@ from echoreo.adapters.security import CurveKeys, secure_server
 from echoreo.errors import InputError
 
 __all__ = ["DeviceClock", "Stopper", "bind_endpoint", "boot_id", "drain_then_close",
-           "peer_socket", "write_ready_file"]
+           "listening", "peer_socket", "receive_pending", "write_ready_file"]
 
 
 @dataclass(frozen=True)
@@ -166,6 +168,47 @@ def drain_then_close(sock: zmq.Socket, grace_s: float = 0.2) -> None:
             except zmq.ZMQError:
                 pass
     sock.close(linger=1000)  # deliver what was sent (and logged) before leaving
+
+
+@contextmanager
+def listening(endpoint: str, keys: CurveKeys | None, *, ready_file: str | Path | None = None,
+              ready_info: dict[str, Any] | None = None,
+              on_ready: Callable[[str], None] | None = None,
+              sndhwm: int | None = None) -> Iterator[tuple[zmq.Socket, str]]:
+    """A reference peer's listening socket for the length of a ``with`` block.
+
+    Binds (:func:`bind_endpoint`), then announces the bound endpoint: a ready file
+    with ``endpoint``, ``pid`` and ``ready_info``, and ``on_ready(endpoint)``.
+    Yields ``(socket, bound endpoint)``; on leaving, the socket is drained and
+    closed (:func:`drain_then_close`), the CURVE authenticator stopped and the
+    context ended, after whatever the block's own ``finally`` still sends.
+    """
+    ctx = zmq.Context()
+    sock, auth = peer_socket(ctx, keys, sndhwm=sndhwm)
+    try:
+        bound = bind_endpoint(sock, endpoint)
+        if ready_file:
+            write_ready_file(ready_file, {"endpoint": bound, "pid": os.getpid(),
+                                          **(ready_info or {})})
+        if on_ready:
+            on_ready(bound)
+        yield sock, bound
+    finally:
+        drain_then_close(sock)
+        if auth is not None:
+            auth.stop()
+        ctx.term()
+
+
+def receive_pending(sock: zmq.Socket, handle: Callable[[list[bytes]], None],
+                    most: int = 1000) -> None:
+    """Hand every message already waiting on ``sock`` (at most ``most``) to ``handle``."""
+    for _ in range(most):
+        try:
+            frames = sock.recv_multipart(zmq.NOBLOCK)
+        except zmq.Again:
+            return
+        handle(frames)
 
 
 class Stopper:

@@ -18,7 +18,6 @@ SIGINT or after ``duration_s``.
 
 from __future__ import annotations
 
-import os
 import time
 from collections import deque
 from collections.abc import Callable
@@ -32,11 +31,9 @@ import zmq
 from echoreo.adapters._peer_common import (
     DeviceClock,
     Stopper,
-    bind_endpoint,
     boot_id,
-    drain_then_close,
-    peer_socket,
-    write_ready_file,
+    listening,
+    receive_pending,
 )
 from echoreo.adapters.protocol import MsgType, decode, encode
 from echoreo.adapters.security import CurveKeys, check_endpoint
@@ -325,27 +322,18 @@ class RobotBridge:
         dict of str to int
             The counters (commands accepted, applied, late, ...).
         """
-        ctx = zmq.Context()
-        sock, auth = peer_socket(ctx, self.keys)
-        try:
-            self.bound_endpoint = bind_endpoint(sock, self.endpoint)
-            if ready_file:
-                write_ready_file(ready_file, {"endpoint": self.bound_endpoint,
-                                              "pid": os.getpid()})
-            if on_ready:
-                on_ready(self.bound_endpoint)
-            self._loop(sock, duration_s)
-        finally:
-            self._hold()
-            if self.host is not None:
-                self._send(sock, self.host.identity, MsgType.BYE, {"reason": "bridge stopping"})
-            self.backend.close()
-            if self.log is not None:
-                self.log.flush()
-            drain_then_close(sock)
-            if auth is not None:
-                auth.stop()
-            ctx.term()
+        with listening(self.endpoint, self.keys, ready_file=ready_file,
+                       on_ready=on_ready) as (sock, self.bound_endpoint):
+            try:
+                self._loop(sock, duration_s)
+            finally:
+                self._hold()
+                if self.host is not None:
+                    self._send(sock, self.host.identity, MsgType.BYE,
+                               {"reason": "bridge stopping"})
+                self.backend.close()
+                if self.log is not None:
+                    self.log.flush()
         return dict(self.counts)
 
     def _loop(self, sock: zmq.Socket, duration_s: float | None) -> None:
@@ -364,12 +352,7 @@ class RobotBridge:
                 wake = min(wake, now + self.clock.real_s(max(0, wait_dev)))
             timeout_ms = max(0.0, (wake - now) * 1e3)
             if poller.poll(timeout_ms):
-                for _ in range(1000):
-                    try:
-                        frames = sock.recv_multipart(zmq.NOBLOCK)
-                    except zmq.Again:
-                        break
-                    self._handle(sock, frames)
+                receive_pending(sock, lambda frames: self._handle(sock, frames))
             if self.queue:
                 self._apply_due()
             now = time.monotonic()

@@ -12,7 +12,6 @@ SIGINT or after ``duration_s``.
 
 from __future__ import annotations
 
-import os
 import time
 from collections import deque
 from collections.abc import Callable
@@ -26,11 +25,9 @@ import zmq
 from echoreo.adapters._peer_common import (
     DeviceClock,
     Stopper,
-    bind_endpoint,
     boot_id,
-    drain_then_close,
-    peer_socket,
-    write_ready_file,
+    listening,
+    receive_pending,
 )
 from echoreo.adapters.protocol import MsgType, decode, encode
 from echoreo.adapters.security import CurveKeys, check_endpoint
@@ -197,25 +194,17 @@ class SensorPublisher:
     def serve(self, duration_s: float | None = None, ready_file: str | Path | None = None,
               on_ready: Callable[[str], None] | None = None) -> dict[str, int]:
         """Listen and publish until stopped; returns the counters."""
-        ctx = zmq.Context()
-        sock, auth = peer_socket(ctx, self.keys, sndhwm=10_000)
-        try:
-            self.bound_endpoint = bind_endpoint(sock, self.endpoint)
-            if ready_file:
-                write_ready_file(ready_file, {"endpoint": self.bound_endpoint,
-                                              "pid": os.getpid(), "boot": self.boot})
-            if on_ready:
-                on_ready(self.bound_endpoint)
-            self._loop(sock, duration_s)
-        finally:
-            for sub in self.subs.values():
-                self._try_send(sock, sub, encode(MsgType.BYE, {"reason": "publisher stopping"}))
-            if self.log is not None:
-                self.log.flush()
-            drain_then_close(sock)
-            if auth is not None:
-                auth.stop()
-            ctx.term()
+        with listening(self.endpoint, self.keys, ready_file=ready_file,
+                       ready_info={"boot": self.boot}, on_ready=on_ready,
+                       sndhwm=10_000) as (sock, self.bound_endpoint):
+            try:
+                self._loop(sock, duration_s)
+            finally:
+                for sub in self.subs.values():
+                    self._try_send(sock, sub,
+                                   encode(MsgType.BYE, {"reason": "publisher stopping"}))
+                if self.log is not None:
+                    self.log.flush()
         return dict(self.counts)
 
     def _loop(self, sock: zmq.Socket, duration_s: float | None) -> None:
@@ -237,12 +226,7 @@ class SensorPublisher:
             if any(sub.outbox for sub in self.subs.values()):
                 wait_ms = min(wait_ms, 1.0)
             if poller.poll(wait_ms):
-                for _ in range(1000):
-                    try:
-                        frames = sock.recv_multipart(zmq.NOBLOCK)
-                    except zmq.Again:
-                        break
-                    self._handle(sock, frames)
+                receive_pending(sock, lambda frames: self._handle(sock, frames))
             now = time.monotonic()
             for ident in [i for i, s in self.subs.items() if now - s.last_rx > self.host_timeout_s]:
                 del self.subs[ident]
