@@ -3,10 +3,10 @@
 False nearest neighbours and Cao's method need, for every delay vector, its one
 nearest other vector. A k-d tree answers that in general; delay vectors of the
 low-dimensional signals we score fill a thin set, and a grid of boxes over their
-first two coordinates finds the neighbour from a handful of nearby
-boxes. This is the box-assisted search of Grassberger (1990) as used for
-embedding statistics by Schreiber (1995); our variant searches shells of boxes
-outwards until no unseen box can hold a closer point, so the answer is exact.
+first two coordinates finds the neighbour from a handful of nearby boxes. This is
+the box-assisted search of Grassberger (1990), reviewed for nonlinear time-series
+analysis by Schreiber (1995); our variant searches rings of boxes outwards until
+no unseen box can hold a closer point, so the answer is exact.
 
 When the grid does not pay (points too spread for their number, e.g. noise in
 many dimensions; a pilot search over a few hundred points tells), the search
