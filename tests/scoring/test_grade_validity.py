@@ -19,7 +19,8 @@ from scipy.stats import spearmanr
 
 from echoreo.runner.choreography import load_choreography
 from echoreo.scoring.params import ScoringParams
-from echoreo.scoring.session_scores import score_data, session_embedding, session_from_arrays
+from echoreo.scoring.session_data import session_from_arrays
+from echoreo.scoring.session_scores import score_data, session_embedding
 from echoreo.sim import load_robot
 from echoreo.sim.participant import DEGRADATIONS, PROFILES, degrade, simulate_participant
 
