@@ -40,6 +40,8 @@ _WORK_PER_QUERY = 60
 _PILOT = 256
 #: Below this many points one thread answers (thread start-up costs more than it saves).
 _PARALLEL_FROM = 4000
+#: Chunks of points per search thread.
+_CHUNKS_PER_THREAD = 4
 
 
 def _threads() -> int:
@@ -487,17 +489,27 @@ def _grid_nearest(points: np.ndarray, p: float,
     if pilot / len(range(0, n, step)) > _WORK_PER_QUERY:
         return None
     threads = _threads() if n >= _PARALLEL_FROM else 1
-    # Four chunks per thread, taken in turn, even out regions of unequal work.
-    parts = 1 if threads == 1 else 4 * threads
+    # Chunks taken in turn from a shared counter even out regions of unequal work; the
+    # calling thread searches too, so one thread fewer is handed work.
+    parts = 1 if threads == 1 else _CHUNKS_PER_THREAD * threads
     bounds = np.linspace(0, n, parts + 1).astype(np.int64)
+    chunks = iter(range(parts))
+    lock = threading.Lock()
+    failed = threading.Event()
 
-    def run(part: int) -> bool:
-        lo, hi = int(bounds[part]), int(bounds[part + 1])
-        return 0 <= int(_search(pts, scx, scy, order, start, m0, m1, x0, y0, eps, maxnorm,
-                                nonzero, lo, hi, 1, idx, dist, 2 * _WORK_PER_QUERY))
+    def work() -> None:
+        while not failed.is_set():
+            with lock:
+                part = next(chunks, None)
+            if part is None:
+                return
+            lo, hi = int(bounds[part]), int(bounds[part + 1])
+            if _search(pts, scx, scy, order, start, m0, m1, x0, y0, eps, maxnorm, nonzero,
+                       lo, hi, 1, idx, dist, 2 * _WORK_PER_QUERY) < 0:
+                failed.set()
 
-    if threads == 1:
-        ok = run(0)
-    else:
-        ok = all(_pool(threads).map(run, range(parts)))
-    return (idx, dist) if ok else None
+    helpers = [_pool(threads).submit(work) for _ in range(threads - 1)]
+    work()
+    for h in helpers:
+        h.result()
+    return None if failed.is_set() else (idx, dist)
