@@ -21,7 +21,7 @@ import time
 
 import numpy as np
 import pytest
-from zmq_peers import MonotonicClock, Peers
+from zmq_peers import MonotonicClock, Peers, drain_states
 
 from echoreo.adapters import Command, ZmqLeader
 from echoreo.adapters.bridge_peer import HostClockEstimate
@@ -60,17 +60,6 @@ def counters(out_text: str) -> dict[str, int]:
     return out
 
 
-def wait_states(leader, until, timeout_s: float):
-    got = []
-    deadline = time.monotonic() + timeout_s
-    while time.monotonic() < deadline:
-        got.extend(leader.read_state())
-        if until(got):
-            break
-        time.sleep(0.01)
-    return got
-
-
 def test_burst_applied_at_command_times_late_command_counted(spawn, tmp_path):
     """40 commands sent at once for 0.3-1.3 s ahead are each applied at its own time
     (never early, each at most 0.1 s and in median at most 20 ms after it, in
@@ -92,7 +81,7 @@ def test_burst_applied_at_command_times_late_command_counted(spawn, tmp_path):
             q[j] += 0.01 * k
             leader.send(Command(seq=k, t_ns=t_k, q=q))
         t_sent = clock.now_ns()
-        states = wait_states(leader, lambda s: bool(s) and s[-1].acked_seq == N_BURST - 1,
+        states = drain_states(leader, lambda s: bool(s) and s[-1].acked_seq == N_BURST - 1,
                              timeout_s=10.0)
         assert states and states[-1].acked_seq == N_BURST - 1
         # every command was acknowledged at receipt, none refused
@@ -103,7 +92,7 @@ def test_burst_applied_at_command_times_late_command_counted(spawn, tmp_path):
         assert before and all(s.acked_seq == -1 for s in before)
         t_late = clock.now_ns() - LATE_NS
         leader.send(Command(seq=N_BURST, t_ns=t_late, q=hello.q))
-        states = wait_states(leader, lambda s: bool(s) and s[-1].acked_seq == N_BURST,
+        states = drain_states(leader, lambda s: bool(s) and s[-1].acked_seq == N_BURST,
                              timeout_s=5.0)
         assert states and states[-1].acked_seq == N_BURST
     finally:

@@ -7,7 +7,7 @@ import time
 
 import numpy as np
 import pytest
-from zmq_peers import MonotonicClock, Peers, by_stream, drain, read_log
+from zmq_peers import MonotonicClock, Peers, by_stream, drain, drain_states, read_log
 
 from echoreo.adapters import Command, ZmqFollowers, ZmqLeader
 
@@ -70,17 +70,6 @@ def test_every_sample_once_in_order_and_commands_acknowledged(spawn, tmp_path):
     finally:
         leader.close()
         followers.close()
-
-
-def drain_states(leader, until, timeout_s: float = 3.0):
-    got = []
-    deadline = time.monotonic() + timeout_s
-    while time.monotonic() < deadline:
-        got.extend(leader.read_state())
-        if until(got):
-            break
-        time.sleep(0.01)
-    return got
 
 
 def test_restarted_publisher_gap_reported_stream_resumes(spawn, tmp_path):

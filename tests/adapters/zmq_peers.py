@@ -116,16 +116,26 @@ def read_log(path: Path) -> dict[str, list[tuple[int, int]]]:
     return out
 
 
-def drain(source, until, timeout_s: float, step_s: float = 0.01):
-    """Poll ``source`` until ``until(batches_so_far)`` or ``timeout_s``; returns the batches."""
-    got = []
+def poll_until(read, until, timeout_s: float, step_s: float = 0.01) -> list:
+    """Call ``read()`` (a list each time) until ``until(all_so_far)`` or ``timeout_s``."""
+    got: list = []
     deadline = time.monotonic() + timeout_s
     while time.monotonic() < deadline:
-        got.extend(source.poll())
+        got.extend(read())
         if until(got):
             break
         time.sleep(step_s)
     return got
+
+
+def drain(source, until, timeout_s: float, step_s: float = 0.01):
+    """Poll ``source`` until ``until(batches_so_far)`` or ``timeout_s``; returns the batches."""
+    return poll_until(source.poll, until, timeout_s, step_s)
+
+
+def drain_states(leader, until, timeout_s: float = 3.0):
+    """Read the leader's STATE messages until ``until(states_so_far)`` or ``timeout_s``."""
+    return poll_until(leader.read_state, until, timeout_s)
 
 
 def by_stream(batches) -> dict[str, list[tuple[int, int]]]:

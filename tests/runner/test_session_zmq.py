@@ -54,6 +54,28 @@ def _stop(proc: subprocess.Popen) -> None:
             proc.wait(5)
 
 
+def _write_plan(tmp_path: Path, participant: str, streams: str, bridge: str,
+                publishers: list[str]) -> Path:
+    """A one-choreography ZeroMQ plan (the tiny raise) with the given ``streams:`` lines."""
+    (tmp_path / "tiny.yaml").write_text(TINY, encoding="utf-8")
+    followers = "".join(f'  - {{adapter: zmq, endpoint: "{ep}"}}\n' for ep in publishers)
+    plan = tmp_path / "plan.yaml"
+    plan.write_text(f"""\
+study: zmq-test
+participant: {participant}
+consent_recorded: true
+robot: torso-e1
+mode: mirror
+command_rate_hz: 50
+countdown_s: 0.5
+choreographies: [tiny.yaml]
+streams:
+{streams}leader: {{adapter: zmq, endpoint: "{bridge}"}}
+followers:
+{followers}""", encoding="utf-8")
+    return plan
+
+
 def test_session_over_zeromq(tmp_path):
     """Bridge and publisher in separate processes: the session completes on the real clock,
     every command is recorded and acknowledged states and all three streams arrive."""
@@ -63,24 +85,11 @@ def test_session_over_zeromq(tmp_path):
         try:
             ep_bridge = _ready(tmp_path, "bridge", bridge)
             ep_pub = _ready(tmp_path, "publish", pub)
-            (tmp_path / "tiny.yaml").write_text(TINY, encoding="utf-8")
-            (tmp_path / "plan.yaml").write_text(f"""\
-study: zmq-test
-participant: Z01
-consent_recorded: true
-robot: torso-e1
-mode: mirror
-command_rate_hz: 50
-countdown_s: 0.5
-choreographies: [tiny.yaml]
-streams:
-  - {{stream: right_wrist_imu, kind: imu, site: right_wrist}}
-  - {{stream: left_wrist_imu, kind: imu, site: left_wrist}}
-  - {{stream: head_pose, kind: head_pose, site: head}}
-leader: {{adapter: zmq, endpoint: "{ep_bridge}"}}
-followers:
-  - {{adapter: zmq, endpoint: "{ep_pub}"}}
-""", encoding="utf-8")
+            _write_plan(tmp_path, "Z01", """\
+  - {stream: right_wrist_imu, kind: imu, site: right_wrist}
+  - {stream: left_wrist_imu, kind: imu, site: left_wrist}
+  - {stream: head_pose, kind: head_pose, site: head}
+""", ep_bridge, [ep_pub])
             res: list = []
             path = run_session(tmp_path / "plan.yaml", out_dir=tmp_path / "out", result=res)
         finally:
@@ -119,25 +128,11 @@ def test_recorded_leader_sensor_named_in_the_plan(tmp_path):
         ep_bridge = _ready(tmp_path, "bridge", bridge)
         ep_pub = _ready(tmp_path, "publish", pub)
         ep_robot = _ready(tmp_path, "robot-imu", robot_imu)
-        (tmp_path / "tiny.yaml").write_text(TINY, encoding="utf-8")
-        (tmp_path / "plan.yaml").write_text(f"""\
-study: zmq-test
-participant: Z02
-consent_recorded: true
-robot: torso-e1
-mode: mirror
-command_rate_hz: 50
-countdown_s: 0.5
-choreographies: [tiny.yaml]
-streams:
-  - {{stream: right_wrist_imu, kind: imu, site: right_wrist,
-      leader_stream: robot_left_wrist_imu}}
-  - {{stream: left_wrist_imu, kind: imu, site: left_wrist}}
-leader: {{adapter: zmq, endpoint: "{ep_bridge}"}}
-followers:
-  - {{adapter: zmq, endpoint: "{ep_pub}"}}
-  - {{adapter: zmq, endpoint: "{ep_robot}"}}
-""", encoding="utf-8")
+        _write_plan(tmp_path, "Z02", """\
+  - {stream: right_wrist_imu, kind: imu, site: right_wrist,
+      leader_stream: robot_left_wrist_imu}
+  - {stream: left_wrist_imu, kind: imu, site: left_wrist}
+""", ep_bridge, [ep_pub, ep_robot])
         path = run_session(tmp_path / "plan.yaml", out_dir=tmp_path / "out")
     finally:
         for proc in (robot_imu, pub, bridge):
