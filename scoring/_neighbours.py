@@ -140,6 +140,16 @@ def _scan_box_z(pts, orig, start, box, q, maxnorm, nonzero, best, best_j):  # pr
 
 
 @njit(cache=True, nogil=True)
+def _box_gap(v, c, b, origin, eps):  # pragma: no cover - compiled
+    """Least distance along one grid axis from a value ``v`` in box ``c`` to box ``b``."""
+    if b < c:
+        return max(v - (origin + (b + 1) * eps), 0.0)
+    if b > c:
+        return max((origin + b * eps) - v, 0.0)
+    return 0.0
+
+
+@njit(cache=True, nogil=True)
 def _search(pts, cx, cy, orig, start, m0, m1, x0, y0, eps, maxnorm, nonzero, lo, hi, step,
             out_idx, out_dist, work_per_query):  # pragma: no cover - compiled
     """Nearest other point of points ``lo, lo + step, ... < hi``; the work done, -1 over budget.
@@ -164,12 +174,7 @@ def _search(pts, cx, cy, orig, start, m0, m1, x0, y0, eps, maxnorm, nonzero, lo,
         while True:
             lo1, hi1 = max(c1 - r, 0), min(c1 + r, m1 - 1)
             for bx in range(max(c0 - r, 0), min(c0 + r, m0 - 1) + 1):
-                gx = 0.0
-                if bx < c0:
-                    gx = (qx - (x0 + (bx + 1) * eps)) * safe
-                elif bx > c0:
-                    gx = ((x0 + bx * eps) - qx) * safe
-                gx = max(gx, 0.0)
+                gx = _box_gap(qx, c0, bx, x0, eps) * safe
                 edge = bx == c0 - r or bx == c0 + r
                 by = lo1
                 while by <= hi1:
@@ -177,12 +182,7 @@ def _search(pts, cx, cy, orig, start, m0, m1, x0, y0, eps, maxnorm, nonzero, lo,
                         by = c1 + r  # skip the shell's interior
                         continue
                     work += 1
-                    gy = 0.0
-                    if by < c1:
-                        gy = (qy - (y0 + (by + 1) * eps)) * safe
-                    elif by > c1:
-                        gy = ((y0 + by * eps) - qy) * safe
-                    gy = max(gy, 0.0)
+                    gy = _box_gap(qy, c1, by, y0, eps) * safe
                     lb = max(gx, gy) if maxnorm else gx * gx + gy * gy
                     if lb <= best:
                         if by_z:
