@@ -189,37 +189,56 @@ def ami(x: object, max_lag: int, bins: int | None = None) -> np.ndarray:
 
 #: A minimum must not be undercut within this many following lags (see choose_delay).
 _AHEAD = 2
+#: Half-width of the lag window I is averaged over, as a fraction of the lag (see choose_delay).
+_SMOOTH_FRACTION = 0.08
 
 
-def _first_local_minimum(values: np.ndarray) -> int | None:
-    """Smallest tau >= 1 with I(tau - 1) > I(tau) <= I(tau + k), k = 1.._AHEAD, or None."""
-    v = values
-    last = v.shape[0] - 1 - _AHEAD
-    if last < 1:
-        return None
-    taus = np.arange(1, last + 1)
-    is_min = v[taus] < v[taus - 1]
-    for k in range(1, _AHEAD + 1):
-        is_min &= v[taus] <= v[taus + k]
-    hits = np.flatnonzero(is_min)
-    return int(taus[hits[0]]) if hits.size else None
+def _half_width(tau: int) -> int:
+    """Half-width h(tau) = max(1, round(0.08 tau)) of the averaging window at lag tau >= 1."""
+    return max(1, int(_SMOOTH_FRACTION * tau + 0.5)) if tau >= 1 else 0
+
+
+def _smoothed(values: np.ndarray, tau: int) -> float:
+    """S(tau): the mean of I over the lags tau - h(tau) ... tau + h(tau)."""
+    h = _half_width(tau)
+    return float(np.mean(values[tau - h : tau + h + 1]))
+
+
+def _is_first_minimum(s: list[float], tau: int) -> bool:
+    """S(tau - 1) > S(tau) <= S(tau + k) for k = 1 .. _AHEAD."""
+    return s[tau - 1] > s[tau] and all(s[tau] <= s[tau + k] for k in range(1, _AHEAD + 1))
 
 
 def choose_delay(x: object, max_lag: int | None = None, bins: int | None = None) -> int:
     r"""Embedding delay: the first local minimum of the average mutual information.
 
     The delay is the first local minimum of :math:`I` (Fraser & Swinney 1986), :math:`I`
-    as in :func:`ami`: the smallest :math:`\tau \ge 1` with
+    as in :func:`ami`, read off the curve averaged over a window of lags that widens
+    with the lag:
 
-    .. math:: I(\tau-1) > I(\tau) \le \min\{I(\tau+1), I(\tau+2)\}.
+    .. math::
 
-    Looking two lags ahead (our choice) keeps the sampling wiggles of a flat
-    minimum (about 0.002 nats for a noisy sine of 2,000 samples) from ending the
-    search a few lags early. Lags are evaluated one at a time (one compiled pass over
-    the sample pairs each) and the search stops two lags after the first minimum, so a
-    long ``max_lag`` costs nothing when the minimum is early.
+        S(\tau) = \frac{1}{2h+1} \sum_{k=-h}^{h} I(\tau + k),
+        \qquad h(\tau) = \max(1, \mathrm{round}(0.08\,\tau)),
 
-    Fallbacks (our own choice, not from Fraser & Swinney): when :math:`I` has no
+    the delay being the smallest :math:`\tau \ge 1` with
+    :math:`S(\tau-1) > S(\tau) \le \min\{S(\tau+1), S(\tau+2)\}`.
+
+    Both the window and the two-lag look-ahead are our choices. Near a quarter period
+    the mutual information of a noisy oscillation is flat to a few thousandths of a nat
+    over ten or more lags, and its sampling wiggles there ended the plain first-minimum
+    search early: for a sine of period 100 samples plus noise of standard deviation 0.1
+    (n = 5,000), 28 of 30 seeds gave 25 +/- 2 and the rest 20-22; with the window, 30 of
+    30 did, and for a period of 250 samples 30 of 30 instead of 2 (our computations).
+    For Lorenz x (dt = 0.01 s) 25 of 25 seeds stayed at 0.17-0.18 s at n = 10,000; at
+    n = 3,000 and 5,000, 12 and 20 of 25 fell within 0.14-0.20 s instead of 16 and 21
+    (short Lorenz series have two shallow minima near 0.18 and 0.26 s). A window
+    proportional to the lag keeps the same relative resolution for slow and fast
+    signals. Lags are evaluated one at a time (one compiled pass over the sample pairs
+    each) and the search stops as soon as the first minimum is confirmed, so a long
+    ``max_lag`` costs nothing when the minimum is early.
+
+    Fallbacks (our own choice, not from Fraser & Swinney): when :math:`S` has no
     local minimum up to ``max_lag``, the first lag with
     :math:`I(\tau) < I(0)/e` (the 1/e decay rule usually applied to the
     autocorrelation function); when it does not decay that far either, ``max_lag``.
@@ -265,14 +284,18 @@ def choose_delay(x: object, max_lag: int | None = None, bins: int | None = None)
     idx, w = weights
     idx = np.ascontiguousarray(idx, dtype=np.int64)
     w = np.ascontiguousarray(w, dtype=np.float64)
-    values = []
+    values: list[float] = []
+    smooth: list[float] = []  # S(0), S(1), ...: S(tau) needs I up to tau + h(tau)
     # Evaluate lags beyond max_lag when possible, so that max_lag itself can be a minimum.
-    last = min(max_lag + _AHEAD, n - 2)
+    final = max_lag + _AHEAD
+    last = min(final + _half_width(final), n - 2)
     for lag in range(last + 1):
         values.append(_ami_lag(idx, w, int(bins), lag))
-        tau = lag - _AHEAD  # the one candidate whose look-ahead is now complete
-        if 1 <= tau <= max_lag and _first_local_minimum(np.asarray(values[: lag + 1])) == tau:
-            return tau
+        while len(smooth) <= final and len(smooth) + _half_width(len(smooth)) <= lag:
+            smooth.append(_smoothed(np.asarray(values), len(smooth)))
+            tau = len(smooth) - 1 - _AHEAD  # the one candidate whose look-ahead is complete
+            if 1 <= tau <= max_lag and _is_first_minimum(smooth, tau):
+                return tau
     values = np.asarray(values)
     below = np.flatnonzero(values[1 : max_lag + 1] < values[0] / math.e)
     if below.size:
