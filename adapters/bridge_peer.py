@@ -225,6 +225,11 @@ class RobotBridge:
     (counted ``dropped``): a queued command never moves the robot after the
     host asked it to hold. STATE's ``acked_seq`` is the last command applied.
 
+    The host learns of lateness from the messages themselves: the ACK of a
+    command counted ``late`` carries ``late_ns`` (ns past its time on arrival,
+    when it was applied), and every STATE carries ``late`` and ``slipped``,
+    the running totals of :attr:`counts` since this bridge started.
+
     Parameters
     ----------
     backend : SimulatedRobotBackend or compatible
@@ -382,7 +387,8 @@ class RobotBridge:
             q = self.backend.read_joints()
             self._send(sock, host.identity, MsgType.STATE,
                        {"seq": self.state_seq, "t_dev_ns": self.clock.now_ns(),
-                        "acked_seq": self.applied_seq, "mode": self.mode}, q)
+                        "acked_seq": self.applied_seq, "mode": self.mode,
+                        "late": self.counts["late"], "slipped": self.counts["slipped"]}, q)
             self.state_seq += 1
             self.counts["states"] += 1
             host.last_hb = now  # a state is a heartbeat
@@ -503,10 +509,12 @@ class RobotBridge:
                  t_rx_dev: int, now: float) -> None:
         seq = m["seq"]
 
-        def ack(status: str, reason: str = "") -> None:
-            meta = {"seq": seq, "t_dev_ns": t_rx_dev, "status": status}
+        def ack(status: str, reason: str = "", late_ns: int | None = None) -> None:
+            meta: dict[str, Any] = {"seq": seq, "t_dev_ns": t_rx_dev, "status": status}
             if reason:
                 meta["reason"] = reason
+            if late_ns is not None:
+                meta["late_ns"] = late_ns
             self._send(sock, ident, MsgType.ACK, meta)
 
         if self.mode == "stopped":
@@ -559,4 +567,7 @@ class RobotBridge:
         if late:
             self.counts["late"] += 1
         self._apply(pending, late)
-        ack("ok", f"late by {-lead * 1e-6:.1f} ms; applied at once" if late else "")
+        if late:
+            ack("ok", f"late by {-lead * 1e-6:.1f} ms; applied at once", late_ns=-lead)
+        else:
+            ack("ok")

@@ -83,7 +83,7 @@ class MsgType(IntEnum):
     BYE = 14
 
 
-# field kinds: "int" (int64, not bool), "str" (short identifier-ish text),
+# field kinds: "int" (int64, not bool), "count" (int64 >= 0), "str" (short identifier-ish text),
 # "text" (free text), "bool", "num" (finite number), "names" (list of short str),
 # "floats" (list of finite numbers), "streams" (list of stream descriptions), "any"
 _SCHEMA: dict[MsgType, tuple[dict[str, str], dict[str, str], int]] = {
@@ -96,8 +96,10 @@ _SCHEMA: dict[MsgType, tuple[dict[str, str], dict[str, str], int]] = {
     MsgType.ANNOUNCE: ({"device": "text", "boot": "int", "streams": "streams",
                         "time_sync": "bool", "heartbeat_ms": "int"}, {}, 0),
     MsgType.COMMAND: ({"seq": "int", "t_ns": "int"}, {}, 1),
-    MsgType.ACK: ({"seq": "int", "t_dev_ns": "int", "status": "str"}, {"reason": "text"}, 0),
-    MsgType.STATE: ({"seq": "int", "t_dev_ns": "int", "acked_seq": "int", "mode": "str"}, {}, 1),
+    MsgType.ACK: ({"seq": "int", "t_dev_ns": "int", "status": "str"},
+                  {"reason": "text", "late_ns": "count"}, 0),
+    MsgType.STATE: ({"seq": "int", "t_dev_ns": "int", "acked_seq": "int", "mode": "str"},
+                    {"late": "count", "slipped": "count"}, 1),
     MsgType.SAMPLES: ({"stream": "str", "n": "int", "boot": "int"}, {}, 2),
     MsgType.HOLD: ({"t_ns": "int"}, {}, 0),
     MsgType.STOP: ({"t_ns": "int"}, {}, 0),
@@ -144,8 +146,9 @@ def _is_name(v: Any) -> bool:
 
 def _check_field(kind: str, key: str, v: Any) -> None:
     ok: bool
-    if kind == "int":
-        ok = isinstance(v, int) and not isinstance(v, bool) and _INT64_MIN <= v <= _INT64_MAX
+    if kind in ("int", "count"):
+        ok = (isinstance(v, int) and not isinstance(v, bool)
+              and (0 if kind == "count" else _INT64_MIN) <= v <= _INT64_MAX)
     elif kind == "str":
         ok = _is_name(v)
     elif kind == "text":
@@ -177,7 +180,8 @@ def _check_field(kind: str, key: str, v: Any) -> None:
     else:  # pragma: no cover - schema typo
         raise AssertionError(kind)
     if not ok:
-        raise _fail(f"field '{key}' must be {kind}, got {type(v).__name__} {str(v)[:40]!r}")
+        what = "a non-negative int" if kind == "count" else kind
+        raise _fail(f"field '{key}' must be {what}, got {type(v).__name__} {str(v)[:40]!r}")
 
 
 def _check_fields(meta: dict, required: dict[str, str], optional: dict[str, str],

@@ -7,7 +7,9 @@ stamped on the session clock, collects ACKs and measured STATEs (mapped
 from the bridge's clock onto the session clock), and exchanges heartbeats.
 When the bridge falls silent for ``timeout_s``, :meth:`alive` turns False
 for good (the runner then stops the session; the bridge, having lost our
-commands and heartbeats, holds position by its watchdog).
+commands and heartbeats, holds position by its watchdog). :meth:`ZmqLeader.timing`
+reports how many commands the bridge applied late (ACK ``late_ns``, STATE
+``late``/``slipped``, PROTOCOL.md section 5), summed over bridge restarts.
 """
 
 from __future__ import annotations
@@ -39,10 +41,29 @@ class _LeaderEngine(LinkEngine):
         self.lost = False
         self.errors: deque[dict] = deque(maxlen=100)
         self.commands_dropped = 0
+        # lateness reported by the bridge (PROTOCOL.md section 5); see ZmqLeader.timing
+        self.boot: int | None = None          # the bridge's boot of the latest WELCOME
+        self.boots = 0                        # distinct boots welcomed so far
+        self.totals: dict[str, int] | None = None   # latest STATE totals of this boot
+        self.totals_before = {"late": 0, "slipped": 0}  # last totals of earlier boots
+        self.totals_seen = False              # any STATE carried the totals
+        self.late_acks = 0
+        self.late_ns_max = 0
+
+    def _fold_totals(self) -> None:
+        """A bridge restart: keep the old boot's last totals, start the new boot at zero."""
+        if self.totals is not None:
+            for k in self.totals_before:
+                self.totals_before[k] += self.totals[k]
+        self.totals = None
 
     def on_message(self, peer: Peer, msg: Message, t_rx_ns: int) -> None:
         m = msg.meta
         if msg.type == MsgType.WELCOME:
+            if m["boot"] != self.boot:
+                self._fold_totals()
+                self.boot = m["boot"]
+                self.boots += 1
             if self.welcome is None:
                 self.welcome = dict(m)
                 self.mark_ready(peer, t_rx_ns)
@@ -52,12 +73,21 @@ class _LeaderEngine(LinkEngine):
             self.mode = m["mode"]
             self.acked_seq = max(self.acked_seq, m["acked_seq"])
             self.states.append((m, msg.arrays[0], t_rx_ns))
+            if "late" in m or "slipped" in m:
+                new = {"late": m.get("late", 0), "slipped": m.get("slipped", 0)}
+                if self.totals is not None and any(new[k] < self.totals[k] for k in new):
+                    self._fold_totals()  # totals went back: a restart under the same boot
+                self.totals = new
+                self.totals_seen = True
         elif msg.type == MsgType.ACK:
             self.acks += 1
             if m["status"] == "ok":
                 self.acked_seq = max(self.acked_seq, m["seq"])
             else:
                 self.rejections.append(dict(m))
+            if "late_ns" in m:
+                self.late_acks += 1
+                self.late_ns_max = max(self.late_ns_max, m["late_ns"])
         elif msg.type == MsgType.ERROR:
             self.errors.append(dict(m))
         elif msg.type == MsgType.BYE:
@@ -220,6 +250,46 @@ class ZmqLeader(Leader):
         _, peer = self._require()
         with self._engine.lock:  # type: ignore[union-attr]
             return peer.sync.clock_map()
+
+    def timing(self) -> dict[str, Any]:
+        """How well the bridge kept the commands' times (PROTOCOL.md section 5).
+
+        Returns
+        -------
+        dict
+            ``late`` : int or None
+                Commands the bridge applied at once because they arrived more
+                than its late limit past their time, summed over this session:
+                the latest STATE ``late`` total of the bridge's current boot
+                plus the last totals of every earlier boot (a restarted bridge
+                counts from zero again). None if the bridge never reported
+                totals (a bridge predating the ``late``/``slipped`` keys).
+            ``slipped`` : int or None
+                Commands the bridge queued but applied more than its late limit
+                after their time because its loop was busy; summed as ``late``.
+            ``late_acks`` : int
+                ACKs received that carried ``late_ns``, i.e. commands this host
+                saw counted late (0 for a bridge that does not send the key).
+            ``late_max_ns`` : int
+                Largest ``late_ns`` among those ACKs, ns past the command's
+                time (0 if none).
+            ``boots`` : int
+                Distinct bridge boots welcomed in this session (1 normally).
+
+        Raises
+        ------
+        RuntimeError
+            If the leader was never connected.
+        """
+        eng, _ = self._require()
+        with eng.lock:
+            cur, before = eng.totals, eng.totals_before
+            reported = eng.totals_seen
+            now = cur or {"late": 0, "slipped": 0}
+            return {"late": before["late"] + now["late"] if reported else None,
+                    "slipped": before["slipped"] + now["slipped"] if reported else None,
+                    "late_acks": eng.late_acks, "late_max_ns": eng.late_ns_max,
+                    "boots": eng.boots}
 
     def link_health(self) -> dict[str, Any]:
         """Counters of the link: acks, rejections, malformed, dropped sends, last errors."""

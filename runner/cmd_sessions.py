@@ -4,7 +4,9 @@ One row per ``*.sqlite`` file (study, participant, plan and the
 choreographies run, duration on the session clock, state, number of streams
 and gaps), then a stream-health table with one row per stream: samples,
 effective rate (samples − 1 over the first-to-last span) against the nominal
-rate, and gaps (silences longer than ``--gap-factor`` nominal periods).
+rate, and gaps (silences longer than ``--gap-factor`` nominal periods), and,
+for sessions led by a ZeroMQ robot bridge, a bridge-timing table (meta
+``bridge_timing``: commands the bridge applied late or slipped).
 Opening a file that a crashed recorder left ``running`` marks it ``interrupted`` (see
 :mod:`echoreo.sessionfile`); files that are not session files are listed with
 the reason instead of stopping the listing.
@@ -67,6 +69,31 @@ def _plan_text(meta: dict) -> str:
     return f"{plan_name}: {text}" if plan_name else text
 
 
+def _timing_row(table: Table, name: str, entry: object) -> None:
+    """One row of the bridge-timing table from meta ``bridge_timing`` (absent: no row).
+
+    ``late`` and ``slipped`` are counts (``-`` when the bridge did not report them),
+    ``late_max_ns`` is shown in ms; an entry that is not a mapping shows as unreadable.
+    """
+    if entry is None:
+        return
+    if not isinstance(entry, dict):
+        table.add_row(name, "[red]unreadable[/]", "", "", "", "")
+        return
+
+    def count(key: str) -> str:
+        v = entry.get(key)
+        if isinstance(v, int) and not isinstance(v, bool):
+            return f"[yellow]{v}[/]" if v and key in ("late", "slipped") else str(v)
+        return "-"
+
+    worst = entry.get("late_max_ns")
+    worst_ms = (f"{worst * 1e-6:.1f}" if isinstance(worst, int | float)
+                and not isinstance(worst, bool) and math.isfinite(worst) and worst > 0 else "-")
+    table.add_row(name, count("late"), count("slipped"), count("late_acks"), worst_ms,
+                  count("boots"))
+
+
 def run(args: argparse.Namespace, console: Console) -> int:
     """List the sessions of ``args.folder``; exit status 0, or 2 for a missing folder."""
     folder = Path(args.folder)
@@ -88,6 +115,10 @@ def run(args: argparse.Namespace, console: Console) -> int:
                          ("samples", "right"), ("rate Hz (eff / nominal)", "right"),
                          ("gaps", "right"), ("longest gap s", "right")):
         health.add_column(col, justify=justify, overflow="fold")
+    timing = Table(title="bridge timing (commands applied more than the bridge's late limit "
+                         "after their time)")
+    for col in ("file", "late", "slipped", "late ACKs", "max late ms", "bridge boots"):
+        timing.add_column(col, justify="left" if col == "file" else "right", overflow="fold")
     counts: dict[str, int] = {}
     for path in files:
         name = escape(str(path.relative_to(folder)))
@@ -112,6 +143,7 @@ def run(args: argparse.Namespace, console: Console) -> int:
                                    escape(str(r.kind or "")), str(r.samples), f"{eff} / {nom}",
                                    f"[{gap_style}]{r.gaps}[/]", longest,
                                    end_section=i == len(h) - 1)
+                _timing_row(timing, name, sf.meta.get("bridge_timing"))
         except SessionFileError as exc:
             state = "unreadable"
             table.add_row(name, "-", "-", "-", "-", "[red]unreadable[/]",
@@ -120,5 +152,7 @@ def run(args: argparse.Namespace, console: Console) -> int:
     console.print(table)
     if health.row_count:
         console.print(health)
+    if timing.row_count:
+        console.print(timing)
     console.print(", ".join(f"{n} {s}" for s, n in sorted(counts.items())))
     return 0

@@ -977,6 +977,14 @@ class _Session:
                 "p99_ns": _json_ready(stats.p99_ns), "max_ns": _json_ready(stats.max_ns),
                 "late_ticks": late_ticks}))
             _safe(lambda: rec.set_meta("held_s", held_ticks / rate))
+            if callable(getattr(leader, "timing", None)):  # a bridge's lateness (ZmqLeader)
+                bridge_timing = _safe(leader.timing)
+                if bridge_timing is not None:
+                    _safe(lambda: rec.set_meta("bridge_timing", bridge_timing))
+                    if bridge_timing["late"] or bridge_timing["slipped"]:
+                        _safe(lambda: warn(f"the bridge applied {bridge_timing['late']} "
+                                           f"commands late and {bridge_timing['slipped']} "
+                                           "slipped (meta bridge_timing)"))
             rec.close(state)
             self.status.phase = "ended"
         samples = {n: m.samples for n, m in monitors.items()}

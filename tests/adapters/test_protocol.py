@@ -25,6 +25,13 @@ VALID = {
     "ack": (MsgType.ACK, {"seq": 3, "t_dev_ns": 11, "status": "ok"}, ()),
     "state": (MsgType.STATE, {"seq": 0, "t_dev_ns": 12, "acked_seq": 3, "mode": "follow"},
               (np.array([0.1, -0.2]),)),
+    # the optional lateness keys (a minor addition within version 1, PROTOCOL.md 2 and 5)
+    "ack_late": (MsgType.ACK, {"seq": 4, "t_dev_ns": 13, "status": "ok",
+                               "reason": "late by 200.7 ms; applied at once",
+                               "late_ns": 200_666_017}, ()),
+    "state_totals": (MsgType.STATE, {"seq": 1, "t_dev_ns": 14, "acked_seq": 4,
+                                     "mode": "follow", "late": 1, "slipped": 0},
+                     (np.array([0.1, -0.2]),)),
     "samples": (MsgType.SAMPLES, {"stream": "right_wrist_imu", "n": 2, "boot": 1},
                 (INDEX, np.array([[1.0, 2.0], [np.nan, 4.0]]))),
     "time_rep": (MsgType.TIME_REP, {"id": 1, "t1_ns": 1, "t2_ns": 2, "t3_ns": 3}, ()),
@@ -71,6 +78,12 @@ BAD = {
     "missing field": [_header(kind=10), b"{}"],
     "NaN joint": [_header(kind=4), b'{"seq":1,"t_ns":1}', np.array([np.nan]).tobytes()],
     "65 joints": [_header(kind=4), b'{"seq":1,"t_ns":1}', np.zeros(65).tobytes()],
+    "negative late_ns": [_header(kind=5),
+                         b'{"seq":1,"t_dev_ns":1,"status":"ok","late_ns":-5}'],
+    "late as text": [_header(kind=6), b'{"seq":1,"t_dev_ns":1,"acked_seq":1,"mode":"follow",'
+                     b'"late":"1"}', np.zeros(2).tobytes()],
+    "slipped as float": [_header(kind=6), b'{"seq":1,"t_dev_ns":1,"acked_seq":1,'
+                         b'"mode":"follow","slipped":1.5}', np.zeros(2).tobytes()],
     "units mismatch": [_header(kind=3), json.dumps({
         "device": "d", "boot": 1, "time_sync": True, "heartbeat_ms": 1,
         "streams": [{**STREAM, "units": ["m"]}]}).encode()],
@@ -89,3 +102,9 @@ def test_encode_refuses_what_decode_would():
     with pytest.raises(ProtocolError, match="stream"):
         encode(MsgType.SAMPLES, {"stream": "", "n": 1, "boot": 1}, INDEX[:1],
                np.zeros((1, 2)))
+
+
+def test_negative_lateness_is_named():
+    """A negative ``late_ns`` is refused with a message naming the field and the rule."""
+    with pytest.raises(ProtocolError, match="'late_ns' must be a non-negative int"):
+        decode(BAD["negative late_ns"])

@@ -65,3 +65,26 @@ def test_missing_folder_exits_2_without_traceback(tmp_path):
     out = _cli("sessions", str(tmp_path / "nope"))
     assert out.returncode == 2
     assert "no such folder" in out.stderr and "Traceback" not in out.stderr
+
+
+def test_bridge_timing_table(tmp_path):
+    """A session led by a bridge shows its meta ``bridge_timing`` in a table of its own
+    (late_max_ns in ms); a session without the entry gets no row, and an entry that is
+    not a mapping is shown as unreadable rather than stopping the listing.
+    Expected values: the entries written here (FORMAT.md section 3, "Adapters")."""
+    for code, entry in (("B01", {"late": 2, "slipped": 1, "late_acks": 2,
+                                 "late_max_ns": 12_345_678, "boots": 1}),
+                        ("B02", None), ("B03", "garbage")):
+        rec = Recorder(tmp_path / f"{code}.sqlite", {"study": "pilot", "participant": code})
+        if entry is not None:
+            rec.set_meta("bridge_timing", entry)
+        rec.close()
+    out = _cli("sessions", str(tmp_path))
+    assert out.returncode == 0, out.stderr
+    rows = {c[0]: c[1:] for c in ([x.strip() for x in line.split("│")[1:-1]]
+                                  for line in out.stdout.splitlines()
+                                  if line.count("│") == 7)}
+    assert rows["B01.sqlite"] == ["2", "1", "2", "12.3", "1"]
+    assert rows["B03.sqlite"][0] == "unreadable"
+    assert "B02.sqlite" not in rows
+    assert "bridge timing" in out.stdout

@@ -147,3 +147,54 @@ def test_recorded_leader_sensor_named_in_the_plan(tmp_path):
     messages = " ".join(p.message for p in scores.problems)
     assert "recorded leader stream" not in messages
     assert set(scores.records["stream"]) == {"right_wrist_imu", "left_wrist_imu"}
+
+
+def _bridge_counters(out_text: str) -> dict[str, int]:
+    """The counters ``echoreo bridge`` prints on stopping: ``bridge stopped: name n, ...``."""
+    tail = " ".join(out_text.split()).split("bridge stopped:", 1)[1]
+    return {name: int(value) for name, value in (item.split() for item in tail.split(","))}
+
+
+def test_bridge_timing_recorded_in_the_session_file(tmp_path):
+    """With a bridge whose late limit is 0 (every command applied any time after its
+    own counts), the session file's meta ``bridge_timing`` holds the bridge's own totals:
+    `late` and `slipped` equal the counters the bridge prints when it stops, the host
+    saw one ACK with ``late_ns`` per late command, and one bridge boot.
+
+    Expected values: the bridge's own counters (PROTOCOL.md section 5); no timing."""
+    bridge = _start(tmp_path, "bridge", "--late", "0")
+    try:
+        pub = _start(tmp_path, "publish", "--streams", "head_pose")
+        try:
+            ep_bridge = _ready(tmp_path, "bridge", bridge)
+            ep_pub = _ready(tmp_path, "publish", pub)
+            _write_plan(tmp_path, "Z03", "  - {stream: head_pose, kind: head_pose, site: head}\n",
+                        ep_bridge, [ep_pub])
+            res: list = []
+            path = run_session(tmp_path / "plan.yaml", out_dir=tmp_path / "out", result=res)
+        finally:
+            _stop(pub)
+    finally:
+        _stop(bridge)
+    counts = _bridge_counters((tmp_path / "bridge.out").read_text())
+    f = SessionFile(path)
+    assert f.state == "complete"
+    timing = f.meta["bridge_timing"]
+    print(f"bridge counters {counts}; recorded {timing}")
+    assert counts["applied"] == res[0].ticks  # every command reached the robot
+    assert timing["late"] == counts["late"] and timing["slipped"] == counts["slipped"]
+    assert timing["late"] + timing["slipped"] > 0  # with a limit of 0 ns nearly all count
+    assert timing["late_acks"] == counts["late"]
+    assert (timing["late_max_ns"] > 0) == (counts["late"] > 0)
+    assert timing["boots"] == 1
+
+
+def test_simulated_leader_records_no_bridge_timing(demo_study):
+    """A simulated leader has no bridge: ``bridge_timing`` is absent (FORMAT.md section 3,
+    "Adapters"), while the runner's own ``tick_lateness`` is there."""
+    sessions = sorted((demo_study["out"] / "sessions").glob("*.sqlite"))
+    assert sessions, demo_study["proc"].stderr[-2000:]
+    for p in sessions:
+        meta = SessionFile(p).meta
+        assert meta["leader_adapter"] == "simulated"
+        assert "bridge_timing" not in meta and "tick_lateness" in meta
