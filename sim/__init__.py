@@ -24,7 +24,7 @@ _EXPORTS: dict[str, str] = {
     "SimStream": "participant",
     "ParticipantRecording": "participant",
     "simulate_participant": "participant",
-    "Robot": "robot",
+    "Robot": "_robotmodel",
     "load_robot": "robot",
     "parse_robot": "robot",
     "shipped_robots": "robot",
