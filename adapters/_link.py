@@ -5,7 +5,8 @@ Private helper of :mod:`echoreo.adapters.zmq_leader` and
 message on the session clock as it arrives (so latencies and the T4 of time
 exchanges are not inflated by how often the caller polls), answers nothing on
 its own except the protocol's housekeeping: hello until welcomed, heartbeats,
-NTP-style time requests, loss detection. ZeroMQ sockets are not thread-safe,
+NTP-style time requests, loss detection (silence, or ERROR ``not_connected`` from
+a peer that restarted or forgot us; PROTOCOL.md section 6). ZeroMQ sockets are not thread-safe,
 so callers never touch them: outgoing messages go through a queue and an
 inproc wake-up socket.
 """
@@ -27,7 +28,10 @@ from echoreo.adapters.protocol import SOCKET_MAX_FRAME_BYTES, Message, MsgType, 
 from echoreo.adapters.security import CurveKeys, check_endpoint, secure_client
 from echoreo.errors import ProtocolError
 
-__all__ = ["LinkEngine", "Peer"]
+__all__ = ["NOT_CONNECTED_REASON", "LinkEngine", "Peer"]
+
+#: Why a peer that answered ERROR ``not_connected`` counts as lost (PROTOCOL.md section 6).
+NOT_CONNECTED_REASON = "answered not_connected: it restarted or lost the session"
 
 _wake_ids = itertools.count()
 _AUTH_EVENTS = zmq.EVENT_HANDSHAKE_FAILED_AUTH | zmq.EVENT_HANDSHAKE_FAILED_PROTOCOL
@@ -176,8 +180,10 @@ class LinkEngine(threading.Thread):
     def on_malformed(self, peer: Peer, err: ProtocolError, t_rx_ns: int) -> None:
         """A message that failed to decode (already counted in ``peer.malformed``)."""
 
-    def on_lost(self, peer: Peer, now_ns: int) -> None:
-        """``peer`` fell silent for longer than the timeout."""
+    def on_lost(self, peer: Peer, now_ns: int, reason: str) -> None:
+        """``peer`` lost its session with us: silent for longer than the timeout, or
+        it answered ERROR ``not_connected`` (it restarted or forgot us); ``reason``
+        says which. The peer is no longer ready; the loop greets it again."""
 
     def on_synced(self, peer: Peer, now_ns: int) -> None:
         """A time exchange with ``peer`` was added to its estimator."""
@@ -275,13 +281,17 @@ class LinkEngine(threading.Thread):
                 return
             t_rx = self.clock.now_ns()
             with self.lock:
-                p.last_rx_ns = t_rx
                 try:
                     msg = decode(frames)
                 except ProtocolError as err:
+                    p.last_rx_ns = t_rx
                     p.malformed += 1
                     self.on_malformed(p, err, t_rx)
                     continue
+                if msg.type not in (MsgType.TIME_REP, MsgType.ERROR):
+                    # peers answer TIME_REQ, and reply ERROR, to any host, with or without
+                    # a session: neither shows that the peer still has a session with us
+                    p.last_rx_ns = t_rx
                 if msg.type == MsgType.TIME_REP:
                     self._time_rep(p, msg, t_rx)
                 elif msg.type == MsgType.HEARTBEAT:
@@ -294,6 +304,9 @@ class LinkEngine(threading.Thread):
                     if msg.type == MsgType.ERROR:
                         p.last_error = dict(msg.meta)
                     self.on_message(p, msg, t_rx)
+                    if (msg.type == MsgType.ERROR and p.ready
+                            and msg.meta["code"] == "not_connected"):
+                        self._session_lost(p, t_rx, NOT_CONNECTED_REASON)
 
     def _time_rep(self, p: Peer, msg: Message, t_rx: int) -> None:
         m = msg.meta
@@ -307,11 +320,14 @@ class LinkEngine(threading.Thread):
             if p.burst_left > 0:
                 self._send_time_req(p, t_rx)
 
+    def _session_lost(self, p: Peer, now: int, reason: str) -> None:
+        p.ready = False
+        p.pending.clear()
+        self.on_lost(p, now, reason)
+
     def _timers(self, p: Peer, now: int) -> None:
         if p.ready and p.last_rx_ns is not None and now - p.last_rx_ns > self.timeout_ns:
-            p.ready = False
-            p.pending.clear()
-            self.on_lost(p, now)
+            self._session_lost(p, now, f"was silent for more than {self.timeout_ns / 1e9:g} s")
         if p.bye_ns is not None and now - p.bye_ns < self.quiet_ns:
             return  # the peer is closing: sending now could make its kernel reset the link
         if not p.ready:

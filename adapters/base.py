@@ -282,6 +282,10 @@ class Leader(abc.ABC):
         """False once the leader has stopped answering (heartbeat lost)."""
         return True
 
+    def lost_reason(self) -> str:
+        """Why :meth:`alive` is False, for the session's fault event (``""``: unknown)."""
+        return ""
+
 
 class FollowerSource(abc.ABC):
     """A source of follower samples (sensors, head pose, a file)."""

@@ -3,7 +3,9 @@
 :class:`SensorPublisher` announces streams and sends samples to every host
 that said hello, stamped on its own (optionally offset, drifting and
 time-compressed) device clock (:class:`~echoreo.adapters.DeviceClock`), and
-answers time requests. :func:`synthetic_streams` (sinusoids) and
+answers time requests; a host it has no session with (it restarted, or forgot
+that host after its silence) gets ERROR ``not_connected`` for its heartbeats, so
+it says HELLO again (PROTOCOL.md section 6). :func:`synthetic_streams` (sinusoids) and
 :func:`participant_streams` (a virtual participant) make what it publishes.
 
 The loop is single-threaded with absolute deadlines and stops on SIGTERM,
@@ -190,6 +192,8 @@ class SensorPublisher:
                        "time_replies": 0}
         self.stopper = Stopper()
         self.bound_endpoint = ""
+        self._err_budget = 10.0
+        self._err_t = time.monotonic()
 
     def serve(self, duration_s: float | None = None, ready_file: str | Path | None = None,
               on_ready: Callable[[str], None] | None = None) -> dict[str, int]:
@@ -335,3 +339,21 @@ class SensorPublisher:
                 "heartbeat_ms": round(self.heartbeat_s * 1e3)}))
         elif msg.type == MsgType.BYE and sub is not None:
             del self.subs[ident]
+        elif msg.type == MsgType.HEARTBEAT and sub is None:
+            # a host we have no session with (we restarted, or forgot it after its
+            # silence) still thinks it is connected: tell it, so it says HELLO again
+            self._not_connected(sock, ident)
+
+    def _not_connected(self, sock: zmq.Socket, ident: bytes) -> None:
+        """ERROR ``not_connected``, at most 10 per second (flood guard, as the bridge)."""
+        now = time.monotonic()
+        self._err_budget = min(10.0, self._err_budget + (now - self._err_t) * 10.0)
+        self._err_t = now
+        if self._err_budget < 1.0:
+            return
+        self._err_budget -= 1.0
+        err = encode(MsgType.ERROR, {"code": "not_connected", "message": "say HELLO first"})
+        try:
+            sock.send_multipart([ident, *err], zmq.NOBLOCK)
+        except zmq.ZMQError:
+            pass

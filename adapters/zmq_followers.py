@@ -11,7 +11,9 @@ silences (``gap``, with a second ``gap`` event when the stream resumes),
 repeated or reordered sequence numbers (``out_of_order``), undecodable
 messages (``malformed``, aggregated per publisher with a count), a publisher
 that restarted (new boot id: its clock estimate and sequence expectations are
-reset; a ``fault`` event says so, and the ``gap`` end event notes it).
+reset; a ``fault`` event says so, and the ``gap`` end event notes it), a publisher
+that answers ERROR ``not_connected`` (it restarted or forgot us: greeted again with
+HELLO, and a ``fault`` event naming its endpoint).
 """
 
 from __future__ import annotations
@@ -108,6 +110,8 @@ class _FollowerEngine(LinkEngine):
         elif msg.type == MsgType.BYE:
             peer.ready = False
         elif msg.type == MsgType.ERROR:
+            if msg.meta["code"] == "not_connected" and not peer.ready:
+                return  # replies to messages sent before we lost it; HELLO is on its way
             self.events.append((t_rx, "fault", "", {"endpoint": peer.endpoint,
                                                     "code": msg.meta["code"],
                                                     "message": msg.meta["message"]}))

@@ -5,9 +5,11 @@ says HELLO, receives WELCOME (robot name, joint names, current pose),
 synchronises clocks with NTP-style exchanges, sends sequenced commands
 stamped on the session clock, collects ACKs and measured STATEs (mapped
 from the bridge's clock onto the session clock), and exchanges heartbeats.
-When the bridge falls silent for ``timeout_s``, :meth:`alive` turns False
-for good (the runner then stops the session; the bridge, having lost our
-commands and heartbeats, holds position by its watchdog). :meth:`ZmqLeader.timing`
+When the bridge falls silent for ``timeout_s``, says BYE, or answers ERROR
+``not_connected`` (it restarted, or forgot us, and ignores our commands),
+:meth:`alive` turns False for good and :meth:`lost_reason` says why (the runner
+then stops the session; the bridge, having lost our commands and heartbeats,
+holds position by its watchdog). :meth:`ZmqLeader.timing`
 reports how many commands the bridge applied late (ACK ``late_ns``, STATE
 ``late``/``slipped``, PROTOCOL.md section 5), summed over bridge restarts.
 """
@@ -39,6 +41,7 @@ class _LeaderEngine(LinkEngine):
         self.rejections: deque[dict] = deque(maxlen=100)
         self.mode = ""
         self.lost = False
+        self.lost_reason = ""
         self.errors: deque[dict] = deque(maxlen=100)
         self.commands_dropped = 0
         # lateness reported by the bridge (PROTOCOL.md section 5); see ZmqLeader.timing
@@ -91,14 +94,19 @@ class _LeaderEngine(LinkEngine):
         elif msg.type == MsgType.ERROR:
             self.errors.append(dict(m))
         elif msg.type == MsgType.BYE:
-            self.lost = True
+            self._lose(peer, "said BYE" + (f" ({m['reason']})" if m.get("reason") else ""))
             peer.ready = False
 
     def on_malformed(self, peer: Peer, err: ProtocolError, t_rx_ns: int) -> None:
         self.errors.append({"code": "malformed", "message": str(err)})
 
-    def on_lost(self, peer: Peer, now_ns: int) -> None:
-        self.lost = True
+    def on_lost(self, peer: Peer, now_ns: int, reason: str) -> None:
+        self._lose(peer, reason)
+
+    def _lose(self, peer: Peer, reason: str) -> None:
+        if not self.lost:  # lost for good: the first cause is the one reported
+            self.lost = True
+            self.lost_reason = f"the robot bridge at {peer.endpoint} {reason}"
 
 
 class ZmqLeader(Leader):
@@ -234,10 +242,21 @@ class ZmqLeader(Leader):
             self._engine.close()
 
     def alive(self) -> bool:
-        """False once the bridge has been silent for ``timeout_s`` (or said BYE)."""
+        """False for good once the bridge has been silent for ``timeout_s``, said BYE,
+        or answered ERROR ``not_connected`` (PROTOCOL.md section 6)."""
         if self._engine is None:
             return False
         return not self._engine.lost and self._engine.fault is None
+
+    def lost_reason(self) -> str:
+        """Why :meth:`alive` is False (``""`` while alive), e.g. "the robot bridge at
+        tcp://127.0.0.1:47100 answered not_connected: it restarted or lost the session"."""
+        if self._engine is None:
+            return "not connected"
+        if self._engine.fault is not None:
+            return f"the link to {self.endpoint} failed: {self._engine.fault!r}"
+        with self._engine.lock:
+            return self._engine.lost_reason
 
     # ---- extras for the live view and tests ----------------------------------------------
     @property
@@ -301,4 +320,5 @@ class ZmqLeader(Leader):
                     "send_dropped": peer.send_dropped, "errors": list(eng.errors),
                     "commands_dropped": eng.commands_dropped,
                     "offset_ns": cmap.offset_ns, "uncertainty_ns": cmap.uncertainty_ns,
-                    "mode": eng.mode, "alive": self.alive()}
+                    "mode": eng.mode, "alive": self.alive(),
+                    "lost_reason": eng.lost_reason}

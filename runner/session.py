@@ -809,7 +809,7 @@ class _Session:
 
                     # leader
                     if not leader.alive():
-                        raise LeaderLost("the leader stopped answering")
+                        raise LeaderLost(leader.lost_reason() or "the leader stopped answering")
                     if not paused_for:
                         if stop_ramp is not None:
                             if stop_i >= len(stop_ramp):

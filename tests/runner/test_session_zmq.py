@@ -12,6 +12,7 @@ import os
 import signal
 import subprocess
 import sys
+import threading
 import time
 from pathlib import Path
 
@@ -198,3 +199,68 @@ def test_simulated_leader_records_no_bridge_timing(demo_study):
         meta = SessionFile(p).meta
         assert meta["leader_adapter"] == "simulated"
         assert "bridge_timing" not in meta and "tick_lateness" in meta
+
+
+def test_bridge_restarted_mid_session_stops_it_as_leader_lost(tmp_path):
+    """kill -9 of the bridge during the choreography and a new bridge on the same
+    endpoint at once (the leader's silence timeout is 30 s, so the restart falls within
+    it): the new bridge answers ``not_connected``, the runner stops the session as for
+    a lost leader (outcome ``leader_lost``, file ``interrupted``) and the fault event
+    names the cause; the new bridge applies none of the session's commands.
+
+    Expected behaviour: adapters/PROTOCOL.md section 6 (ERROR ``not_connected``)."""
+    bridge = _start(tmp_path, "bridge")
+    bridge2 = None
+    try:
+        pub = _start(tmp_path, "publish", "--streams", "head_pose")
+        try:
+            ep_bridge = _ready(tmp_path, "bridge", bridge)
+            ep_pub = _ready(tmp_path, "publish", pub)
+            plan = _write_plan(tmp_path, "Z04",
+                               "  - {stream: head_pose, kind: head_pose, site: head}\n",
+                               ep_bridge, [ep_pub])
+            plan.write_text(plan.read_text().replace(f'endpoint: "{ep_bridge}"}}',
+                                                     f'endpoint: "{ep_bridge}", timeout_s: 30}}'))
+            (tmp_path / "tiny.yaml").write_text(TINY.replace("repeat: 2", "repeat: 10"))
+            out = tmp_path / "out"
+            restarted: list = []
+
+            def restart() -> None:
+                nonlocal bridge2
+                deadline = time.monotonic() + START_S
+                while not list(out.glob("*.sqlite")) and time.monotonic() < deadline:
+                    time.sleep(0.02)
+                time.sleep(1.5)  # into the session's commands
+                bridge.kill()
+                bridge.wait(5)
+                bridge2 = _start(tmp_path, "bridge", "--endpoint", ep_bridge, tag="bridge2")
+                _ready(tmp_path, "bridge2", bridge2)
+                restarted.append(time.monotonic())
+
+            killer = threading.Thread(target=restart, daemon=True)
+            killer.start()
+            res: list = []
+            path = run_session(plan, out_dir=out, result=res)
+            t_end = time.monotonic()
+            killer.join(START_S)
+        finally:
+            _stop(pub)
+    finally:
+        _stop(bridge)
+        if bridge2 is not None:
+            _stop(bridge2)
+    assert restarted, "the bridge was not restarted during the session"
+    print(f"session ended {t_end - restarted[0]:.3f} s after the new bridge listened")
+    assert t_end - restarted[0] < 5.0
+    assert res[0].outcome == "leader_lost"
+    f = SessionFile(path)
+    assert f.state == "interrupted"
+    ev = f.events()
+    faults = [json.loads(d) for d in ev.loc[ev["kind"] == "fault", "detail"]]
+    lost = [d for d in faults if d.get("reason") == "leader lost"]
+    assert len(lost) == 1
+    assert "not_connected" in lost[0]["detail"] and "restarted" in lost[0]["detail"]
+    # the host greeted the new bridge again after the loss (its WELCOME counts as a second
+    # boot) but never commanded it: the restarted robot moved by no command of this session
+    assert f.meta["bridge_timing"]["boots"] == 2
+    assert _bridge_counters((tmp_path / "bridge2.out").read_text())["applied"] == 0
