@@ -9,11 +9,11 @@ from echoreo._lazy import lazy_exports
 
 #: public name -> submodule of this package that defines it
 _EXPORTS: dict[str, str] = {
-    "ChannelMap": "file_import",
+    "ChannelMap": "_importtypes",
     "FileSource": "file_import",
-    "ImportMapping": "file_import",
-    "StreamMap": "file_import",
-    "TimeSpec": "file_import",
+    "ImportMapping": "_importmapping",
+    "StreamMap": "_importtypes",
+    "TimeSpec": "_importtypes",
     "Clock": "base",
     "ClockMap": "base",
     "Command": "base",
