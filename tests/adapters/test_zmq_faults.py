@@ -103,13 +103,13 @@ def test_device_without_time_sync_mapped_by_lower_envelope(spawn):
 # silence timeout (PROTOCOL.md section 6). The host's timeout is set to 30 s here so
 # that silence cannot be what the host notices: the restart always falls within it.
 RESTART_TIMEOUT_S = 30.0
-DETECT_S = 5.0  # generous bound on noticing the restarted peer, real s
+DETECT_S = 10.0  # generous bound on noticing the restarted peer (loaded CI machines), real s
 
 
 def test_quickly_restarted_bridge_makes_leader_lost_with_reason(spawn):
     """kill -9 of the bridge and a new bridge on the same endpoint, while the host keeps
     commanding at 50 Hz: the new bridge has no session with the host and answers
-    ERROR ``not_connected``; the host counts the leader lost for good (within 5 s of the
+    ERROR ``not_connected``; the host counts the leader lost for good (within 10 s of the
     new bridge listening, far inside the 30 s silence timeout), names the cause, and
     drops later commands instead of sending them to a bridge that ignores them.
 
@@ -157,7 +157,7 @@ def test_quickly_restarted_publisher_greeted_again_stream_resumes(spawn, tmp_pat
     """kill -9 of a publisher and a new one on the same endpoint within the host's
     silence timeout: the new publisher answers the host's heartbeats with ERROR
     ``not_connected``, the host says HELLO again, the new ANNOUNCE's boot differs, and
-    the stream resumes (within 5 s, far inside the 30 s timeout) with every sample the
+    the stream resumes (within 10 s, far inside the 30 s timeout) with every sample the
     new publisher logged, a ``fault`` event naming the restart and a gap end noting it.
 
     Expected behaviour: PROTOCOL.md sections 2 (a new ``boot``) and 6."""
@@ -201,7 +201,7 @@ def test_time_replies_alone_do_not_keep_a_publisher_connected():
     """A peer on the publisher's endpoint that answers TIME_REQ (as peers do for any
     host) but sends nothing else, nor ERROR: the host, silence timeout 1 s, time
     exchanges every 0.3 s, counts it lost after the silence and greets it with HELLO
-    again (within 5 s); time replies are no sign of a session.
+    again (within 10 s); time replies are no sign of a session.
 
     Expected behaviour: PROTOCOL.md section 6 (what counts as silence)."""
     ctx = zmq.Context()
