@@ -77,26 +77,35 @@ followers:
     return plan
 
 
+def _run_with_peers(tmp_path: Path, participant: str, streams: str, bridge_args: tuple = (),
+                    publishers: tuple = (("publish", ()),)) -> tuple[Path, list]:
+    """Start a bridge and the publishers (tag, arguments) as processes, run the session of
+    a one-choreography plan with the given ``streams:`` lines, stop the peers; returns
+    the session file's path and the run's results."""
+    procs: dict[str, subprocess.Popen] = {}
+    try:
+        procs["bridge"] = _start(tmp_path, "bridge", *bridge_args)
+        for tag, args in publishers:
+            procs[tag] = _start(tmp_path, "publish", *args, tag=tag)
+        endpoints = {tag: _ready(tmp_path, tag, proc) for tag, proc in procs.items()}
+        _write_plan(tmp_path, participant, streams, endpoints.pop("bridge"),
+                    list(endpoints.values()))
+        res: list = []
+        path = run_session(tmp_path / "plan.yaml", out_dir=tmp_path / "out", result=res)
+    finally:
+        for proc in reversed(list(procs.values())):
+            _stop(proc)
+    return path, res
+
+
 def test_session_over_zeromq(tmp_path):
     """Bridge and publisher in separate processes: the session completes on the real clock,
     every command is recorded and acknowledged states and all three streams arrive."""
-    bridge = _start(tmp_path, "bridge")
-    try:
-        pub = _start(tmp_path, "publish", "--clock-offset", "3.7")
-        try:
-            ep_bridge = _ready(tmp_path, "bridge", bridge)
-            ep_pub = _ready(tmp_path, "publish", pub)
-            _write_plan(tmp_path, "Z01", """\
+    path, res = _run_with_peers(tmp_path, "Z01", """\
   - {stream: right_wrist_imu, kind: imu, site: right_wrist}
   - {stream: left_wrist_imu, kind: imu, site: left_wrist}
   - {stream: head_pose, kind: head_pose, site: head}
-""", ep_bridge, [ep_pub])
-            res: list = []
-            path = run_session(tmp_path / "plan.yaml", out_dir=tmp_path / "out", result=res)
-        finally:
-            _stop(pub)
-    finally:
-        _stop(bridge)
+""", publishers=(("publish", ("--clock-offset", "3.7")),))
     f = SessionFile(path)
     assert f.state == "complete" and f.meta["clock"] == "real"
     assert len(f.read_stream("leader_command")) == res[0].ticks
@@ -121,23 +130,12 @@ def test_recorded_leader_sensor_named_in_the_plan(tmp_path):
     used by scoring as the leader reference (no fall-back to the virtual sensor)."""
     from echoreo.scoring import score_session
 
-    bridge = _start(tmp_path, "bridge")
-    pub = _start(tmp_path, "publish")
-    robot_imu = _start(tmp_path, "publish", "--source", "synthetic", "--streams",
-                       "robot_left_wrist_imu", tag="robot-imu")
-    try:
-        ep_bridge = _ready(tmp_path, "bridge", bridge)
-        ep_pub = _ready(tmp_path, "publish", pub)
-        ep_robot = _ready(tmp_path, "robot-imu", robot_imu)
-        _write_plan(tmp_path, "Z02", """\
+    path, _ = _run_with_peers(tmp_path, "Z02", """\
   - {stream: right_wrist_imu, kind: imu, site: right_wrist,
       leader_stream: robot_left_wrist_imu}
   - {stream: left_wrist_imu, kind: imu, site: left_wrist}
-""", ep_bridge, [ep_pub, ep_robot])
-        path = run_session(tmp_path / "plan.yaml", out_dir=tmp_path / "out")
-    finally:
-        for proc in (robot_imu, pub, bridge):
-            _stop(proc)
+""", publishers=(("publish", ()), ("robot-imu", ("--source", "synthetic", "--streams",
+                                                 "robot_left_wrist_imu"))))
     f = SessionFile(path)
     assert f.state == "complete"
     pairs = {p["stream"]: p for p in f.meta["pairs"]}
@@ -163,20 +161,10 @@ def test_bridge_timing_recorded_in_the_session_file(tmp_path):
     saw one ACK with ``late_ns`` per late command, and one bridge boot.
 
     Expected values: the bridge's own counters (PROTOCOL.md section 5); no timing."""
-    bridge = _start(tmp_path, "bridge", "--late", "0")
-    try:
-        pub = _start(tmp_path, "publish", "--streams", "head_pose")
-        try:
-            ep_bridge = _ready(tmp_path, "bridge", bridge)
-            ep_pub = _ready(tmp_path, "publish", pub)
-            _write_plan(tmp_path, "Z03", "  - {stream: head_pose, kind: head_pose, site: head}\n",
-                        ep_bridge, [ep_pub])
-            res: list = []
-            path = run_session(tmp_path / "plan.yaml", out_dir=tmp_path / "out", result=res)
-        finally:
-            _stop(pub)
-    finally:
-        _stop(bridge)
+    path, res = _run_with_peers(tmp_path, "Z03",
+                                "  - {stream: head_pose, kind: head_pose, site: head}\n",
+                                bridge_args=("--late", "0"),
+                                publishers=(("publish", ("--streams", "head_pose")),))
     counts = _bridge_counters((tmp_path / "bridge.out").read_text())
     f = SessionFile(path)
     assert f.state == "complete"
