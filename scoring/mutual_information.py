@@ -284,19 +284,18 @@ def choose_delay(x: object, max_lag: int | None = None, bins: int | None = None)
     idx, w = weights
     idx = np.ascontiguousarray(idx, dtype=np.int64)
     w = np.ascontiguousarray(w, dtype=np.float64)
-    values: list[float] = []
-    smooth: list[float] = []  # S(0), S(1), ...: S(tau) needs I up to tau + h(tau)
     # Evaluate lags beyond max_lag when possible, so that max_lag itself can be a minimum.
     final = max_lag + _AHEAD
     last = min(final + _half_width(final), n - 2)
+    values = np.empty(last + 1)
+    smooth: list[float] = []  # S(0), S(1), ...: S(tau) needs I up to tau + h(tau)
     for lag in range(last + 1):
-        values.append(_ami_lag(idx, w, int(bins), lag))
+        values[lag] = _ami_lag(idx, w, int(bins), lag)
         while len(smooth) <= final and len(smooth) + _half_width(len(smooth)) <= lag:
-            smooth.append(_smoothed(np.asarray(values), len(smooth)))
+            smooth.append(_smoothed(values, len(smooth)))
             tau = len(smooth) - 1 - _AHEAD  # the one candidate whose look-ahead is complete
             if 1 <= tau <= max_lag and _is_first_minimum(smooth, tau):
                 return tau
-    values = np.asarray(values)
     below = np.flatnonzero(values[1 : max_lag + 1] < values[0] / math.e)
     if below.size:
         return int(below[0]) + 1
