@@ -43,7 +43,7 @@ def _adapter(ck: _Checker, d: Any, where: str, allowed_adapters: tuple[str, ...]
         return None
     kind = d.get("adapter")
     if kind not in allowed_adapters:
-        ck.add(d.value_loc("adapter") if "adapter" in d else d.loc,
+        ck.add(d.value_loc("adapter"),
                f"{where}: adapter {kind!r} is not known" if "adapter" in d
                else f"{where}: `adapter:` is missing",
                "use one of: " + ", ".join(allowed_adapters))

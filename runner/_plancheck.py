@@ -57,8 +57,3 @@ def _closest(word: str, options: set[str]) -> str | None:
 
     m = difflib.get_close_matches(word, sorted(options), n=1, cutoff=0.7)
     return m[0] if m else None
-
-
-def _as_text(d: LDict, key: str) -> str:
-    v = d.get(key)
-    return v if isinstance(v, str) else ""

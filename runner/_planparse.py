@@ -135,6 +135,17 @@ def _load_item(ck: _Checker, entry: Any, loc: Loc, base: Path, robot: Any, defau
                     path.read_text(encoding="utf-8"))
 
 
+def _entries(ck: _Checker, data: LDict, key: str, message: str,
+             hint: str) -> list[tuple[int, Any, Loc]]:
+    """(index, entry, location) of every entry of the non-empty list under ``key``; none,
+    after a located problem, when it is missing, empty or not a list."""
+    value = data.get(key)
+    if not isinstance(value, LList) or not value:
+        ck.add(data.value_loc(key), message, hint)
+        return []
+    return [(i, entry, value.item_loc(i)) for i, entry in enumerate(value)]
+
+
 def _parse(path: Path, *, participant: str | None = None) -> tuple[SessionPlan | None,
                                                                   list[Problem]]:
     ck = _Checker()
@@ -149,7 +160,7 @@ def _parse(path: Path, *, participant: str | None = None) -> tuple[SessionPlan |
     # consent first: nothing runs without it
     consent = data.get("consent_recorded")
     if consent is not True:
-        where = data.value_loc("consent_recorded") if "consent_recorded" in data else data.loc
+        where = data.value_loc("consent_recorded")
         ck.add(where, "consent_recorded must be `true`: a session may only run once the "
                "participant's informed consent has been recorded"
                + ("" if "consent_recorded" in data else " (the key is missing)"),
@@ -158,7 +169,7 @@ def _parse(path: Path, *, participant: str | None = None) -> tuple[SessionPlan |
 
     study = data.get("study")
     if not isinstance(study, str) or not study.strip():
-        ck.add(data.value_loc("study") if "study" in data else data.loc,
+        ck.add(data.value_loc("study"),
                "study must be a non-empty name", "e.g. study: arm-imitation-pilot")
         study = ""
 
@@ -170,7 +181,7 @@ def _parse(path: Path, *, participant: str | None = None) -> tuple[SessionPlan |
 
     mode = data.get("mode")
     if mode not in MODES:
-        ck.add(data.value_loc("mode") if "mode" in data else data.loc,
+        ck.add(data.value_loc("mode"),
                f"mode {mode!r} is not known" if "mode" in data else "`mode:` is missing",
                "use mode: mirror (participant faces the robot and copies it like a mirror) "
                "or mode: anatomical (same side)")
@@ -190,36 +201,30 @@ def _parse(path: Path, *, participant: str | None = None) -> tuple[SessionPlan |
         robot = _load_robot(ck, data["robot"], data.value_loc("robot"), base)
 
     items: list[PlanItem] = []
-    chors = data.get("choreographies")
-    if not isinstance(chors, LList) or not chors:
-        ck.add(data.value_loc("choreographies") if "choreographies" in data else data.loc,
-               "choreographies must be a non-empty list",
-               "list shipped names or files relative to the plan")
-    else:
-        for i, entry in enumerate(chors):
-            item = _load_item(ck, entry, chors.item_loc(i), base, robot,
-                              {"countdown_s": countdown, "rest_s": rest}, rate)
-            if item is not None:
-                items.append(item)
+    for _, entry, loc in _entries(ck, data, "choreographies",
+                                  "choreographies must be a non-empty list",
+                                  "list shipped names or files relative to the plan"):
+        item = _load_item(ck, entry, loc, base, robot,
+                          {"countdown_s": countdown, "rest_s": rest}, rate)
+        if item is not None:
+            items.append(item)
 
     pairs = _streams(ck, data.get("streams"),
-                     data.value_loc("streams") if "streams" in data else data.loc, mode)
+                     data.value_loc("streams"), mode)
 
     leader = _adapter(ck, data.get("leader"), "leader", LEADER_ADAPTERS,
-                      data.value_loc("leader") if "leader" in data else data.loc)
+                      data.value_loc("leader"))
     followers: list[AdapterSpec] = []
-    fl = data.get("followers")
-    if not isinstance(fl, LList) or not fl:
-        ck.add(data.value_loc("followers") if "followers" in data else data.loc,
-               "followers must be a non-empty list of follower sources",
-               "e.g.\n  followers:\n    - {adapter: simulated, profile: good, seed: 1}")
-    else:
-        for i, f in enumerate(fl):
-            spec = _adapter(ck, f, f"followers[{i}]", FOLLOWER_ADAPTERS, fl.item_loc(i))
-            if spec is not None:
-                followers.append(spec)
+    entries = _entries(ck, data, "followers",
+                       "followers must be a non-empty list of follower sources",
+                       "e.g.\n  followers:\n    - {adapter: simulated, profile: good, seed: 1}")
+    for i, f, loc in entries:
+        spec = _adapter(ck, f, f"followers[{i}]", FOLLOWER_ADAPTERS, loc)
+        if spec is not None:
+            followers.append(spec)
+    if entries:
         names = {p.stream for p in pairs}
-        for f in fl:
+        for _, f, _ in entries:
             if isinstance(f, LDict) and isinstance(f.get("dropout"), LDict | LList):
                 drops = f["dropout"] if isinstance(f["dropout"], LList) else [f["dropout"]]
                 for dd in drops:

@@ -61,7 +61,7 @@ def _streams(ck: _Checker, d: Any, loc: Loc, mode: str) -> list[StreamPair]:
         name = s.get("stream")
         ok = True
         if not isinstance(name, str) or not _STREAM_NAME.match(name):
-            ck.add(s.value_loc("stream") if "stream" in s else s.loc,
+            ck.add(s.value_loc("stream"),
                    f"stream name {name!r} is missing or not a safe identifier",
                    "letters, digits and underscores, starting with a letter")
             ok = False
@@ -73,12 +73,12 @@ def _streams(ck: _Checker, d: Any, loc: Loc, mode: str) -> list[StreamPair]:
             seen[name] = s.value_loc("stream")
         kind = s.get("kind")
         if kind not in STREAM_KINDS:
-            ck.add(s.value_loc("kind") if "kind" in s else s.loc,
+            ck.add(s.value_loc("kind"),
                    f"stream kind {kind!r} is not known", "use one of: " + ", ".join(STREAM_KINDS))
             ok = False
         site = s.get("site")
         if site not in SITES:
-            ck.add(s.value_loc("site") if "site" in s else s.loc,
+            ck.add(s.value_loc("site"),
                    f"body site {site!r} is not known", "use one of: " + ", ".join(SITES))
             ok = False
         expected = leader_site_for(site, mode) if site in SITES else None
