@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
+import math
 from typing import Literal, NamedTuple
 
 import numpy as np
+from numba import njit
 
 from echoreo.errors import ScoringInputError
 from echoreo.scoring._checks import as_series, check_positive_int, require_not_constant
@@ -111,16 +113,52 @@ def fnn(x: object, delay: int, max_dim: int = 10, rtol: float = 15.0,
                      for d in range(1, max_dim + 1)])
 
 
+def _is_false(series: np.ndarray, shift: int, rows: np.ndarray, nb: np.ndarray,
+              r_d: np.ndarray, rtol: float, atol: float, r_a: float) -> np.ndarray:
+    """Kennel et al.'s two criteria (see :func:`fnn`) for the vectors ``rows`` (k,)."""
+    gap = np.abs(series[rows + shift] - series[nb + shift])
+    return (gap > rtol * r_d) | (np.sqrt(r_d * r_d + gap * gap) > atol * r_a)
+
+
+@njit(cache=True, nogil=True)
+def _count_false(series, shift, rows, nb, r_d, rtol, limit):  # pragma: no cover - compiled
+    """How many of the vectors ``rows`` (k,) have a false neighbour: :func:`_is_false`
+    with ``limit`` = atol * R_A, in one pass."""
+    false = 0
+    for i in rows:
+        gap = abs(series[i + shift] - series[nb[i] + shift])
+        r = r_d[i]
+        if gap > rtol * r or math.sqrt(r * r + gap * gap) > limit:
+            false += 1
+    return false
+
+
 def _fnn_fraction(series: np.ndarray, delay: int, d: int, rtol: float, atol: float,
-                  r_a: float) -> float:
-    """Fraction of false nearest neighbours at dimension d (see :func:`fnn`)."""
+                  r_a: float, level: float | None = None) -> float | None:
+    """Fraction of false nearest neighbours at dimension d (see :func:`fnn`).
+
+    With ``level``, None as soon as the false neighbours found make up at least that
+    fraction of all ``n - d * delay`` vectors: the fraction is then known to be at
+    least ``level`` without searching the remaining neighbours.
+    """
     count = series.shape[0] - d * delay
     points = embed(series, d, delay)[:count]
-    nb, r_d = nearest_other(points, p=2.0, nonzero=False)
-    gap = np.abs(series[d * delay : d * delay + count] - series[nb + d * delay])
-    false1 = gap > rtol * r_d
-    false2 = np.sqrt(r_d * r_d + gap * gap) > atol * r_a
-    return np.count_nonzero(false1 | false2) / count
+    shift = d * delay
+    stop = None
+    if level is not None:
+        limit = level * count
+        found = [0]
+
+        def stop(rows: np.ndarray, nb: np.ndarray, r_d: np.ndarray) -> bool:
+            found[0] += _count_false(series, shift, rows, nb, r_d, rtol, atol * r_a)
+            return found[0] >= limit
+
+    answer = nearest_other(points, p=2.0, nonzero=False, stop=stop)
+    if answer is None:
+        return None
+    nb, r_d = answer
+    return np.count_nonzero(_is_false(series, shift, np.arange(count), nb, r_d,
+                                      rtol, atol, r_a)) / count
 
 
 def _cao_e(series: np.ndarray, delay: int, d: int) -> tuple[float, float]:
@@ -216,6 +254,9 @@ def choose_dimension(x: object, delay: int, method: Literal["fnn", "cao"] = "fnn
 
     Both thresholds are our operational readings of the papers, which describe
     the criterion ("drops to zero", "stops changing") without a number.
+    With ``method="fnn"`` a dimension's neighbour search ends once the false
+    neighbours found reach ``threshold`` of all vectors (its fraction cannot then
+    fall below it); the answer equals the rule applied to :func:`fnn`'s curve.
     When the series is too short for ``max_dim``, ``max_dim`` is lowered to the
     largest testable value (documented fallback); fewer than 2 testable
     dimensions raise.
@@ -264,11 +305,15 @@ def choose_dimension(x: object, delay: int, method: Literal["fnn", "cao"] = "fnn
     if method == "fnn":
         level = FNN_THRESHOLD if threshold is None else float(threshold)
         r_a = float(np.std(series))
+        # A dimension's search ends as soon as its false neighbours reach the level;
+        # only when no dimension falls below it are the full fractions needed.
         fractions = []
         for d in range(1, max_dim + 1):
-            fractions.append(_fnn_fraction(series, delay, d, 15.0, 2.0, r_a))
-            if fractions[-1] < level:
+            fractions.append(_fnn_fraction(series, delay, d, 15.0, 2.0, r_a, level))
+            if fractions[-1] is not None and fractions[-1] < level:
                 return d
+        fractions = [_fnn_fraction(series, delay, d, 15.0, 2.0, r_a) if f is None else f
+                     for d, f in enumerate(fractions, start=1)]
         return int(np.argmin(fractions)) + 1
     if method == "cao":
         level = CAO_THRESHOLD if threshold is None else float(threshold)

@@ -147,3 +147,65 @@ def test_concurrent_callers_share_the_thread_pool_safely():
         together = list(callers.map(lambda s: nearest_other(s)[1], sets))
     for a, b in zip(alone, together, strict=True):
         np.testing.assert_array_equal(a, b)
+
+
+def _recorder(halt_after=None):
+    """A stop callable that records the rows it is given; True after ``halt_after`` calls."""
+    calls = []
+
+    def stop(rows, idx, dist):
+        calls.append((rows.copy(), idx[rows].copy(), dist[rows].copy()))
+        return halt_after is not None and len(calls) >= halt_after
+
+    return stop, calls
+
+
+@pytest.mark.parametrize("n", [3000, 12000])  # one search thread, and two
+def test_stop_sees_every_row_once_with_its_final_answer(n):
+    """A stop that never halts: the answer is the one without stop, every row reaches
+    stop exactly once, and what stop saw for a row is its final answer."""
+    rng = np.random.default_rng(41)
+    x = np.sin(2 * np.pi * np.arange(n + 60) / 100) + 0.1 * rng.standard_normal(n + 60)
+    points = np.ascontiguousarray(embed(x, 3, 25))
+    plain = nearest_other(points)
+    stop, calls = _recorder()
+    found = nearest_other(points, stop=stop)
+    np.testing.assert_array_equal(found[1], plain[1])
+    rows = np.concatenate([c[0] for c in calls])
+    assert len(calls) >= points.shape[0] // 256
+    np.testing.assert_array_equal(np.sort(rows), np.arange(points.shape[0]))
+    for r, i, d in calls:
+        np.testing.assert_array_equal(found[0][r], i)
+        np.testing.assert_array_equal(found[1][r], d)
+
+
+def test_stop_ends_the_search():
+    """True from stop: no answer is returned and no further chunk reaches stop."""
+    rng = np.random.default_rng(42)
+    points = np.ascontiguousarray(embed(np.cumsum(rng.standard_normal(9000)), 3, 7))
+    stop, calls = _recorder(halt_after=2)
+    assert nearest_other(points, stop=stop) is None
+    assert len(calls) == 2
+    assert all(len(c[0]) <= 256 for c in calls)
+
+
+def test_stop_with_the_kd_tree(monkeypatch):
+    """Where the boxes do not pay, the k-d tree answers in runs and honours stop; rows
+    the boxes already passed to stop are not passed again."""
+    monkeypatch.setattr(_neighbours, "_WORK_PER_QUERY", 0)
+    rng = np.random.default_rng(43)
+    points = rng.standard_normal((4000, 4))
+    ref, _ = cKDTree(points).query(points, k=2)
+    stop, calls = _recorder()
+    _idx, dist = nearest_other(points, stop=stop)
+    np.testing.assert_allclose(dist, ref[:, 1], rtol=1e-12)
+    assert len(calls) == _neighbours._KDTREE_RUNS
+    np.testing.assert_array_equal(np.concatenate([c[0] for c in calls]), np.arange(4000))
+    stop, calls = _recorder(halt_after=1)
+    assert nearest_other(points, stop=stop) is None and len(calls) == 1
+    reported = np.zeros(4000, dtype=bool)
+    reported[::3] = True
+    stop, calls = _recorder()
+    _neighbours._kdtree_nearest(points, 2.0, False, stop, reported)
+    np.testing.assert_array_equal(np.concatenate([c[0] for c in calls]),
+                                  np.flatnonzero(~reported))
