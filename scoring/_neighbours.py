@@ -36,8 +36,11 @@ _TARGET_OCCUPANCY_SORTED = 12.0
 #: Boxes of the dense box table at most, per point.
 _CELLS_PER_POINT = 32
 #: Work units (box visits + distance evaluations) per point above which the k-d tree is
-#: cheaper (boxes cost ~15-25 ns per unit here, scipy's tree ~1-2 us per point).
-_WORK_PER_QUERY = 60
+#: cheaper. Measured over 24 sets (Gaussian noise d = 3-6, noisy sines d = 4-6, Lorenz
+#: d = 5 and 7; n = 5,000 and 50,000), fastest of 5 runs: boxes were as fast or faster
+#: on every set up to 96 units per point (1.0-2.3x), the tree faster on every set from
+#: 117 on (1.1-2.2x) but one (148 units, equal).
+_WORK_PER_QUERY = 100
 #: Points of the pilot search that decides between boxes and the k-d tree.
 _PILOT = 256
 #: Below this many points one thread answers (thread start-up costs more than it saves).
@@ -460,8 +463,8 @@ def nearest_other(points: np.ndarray, p: float = 2.0, nonzero: bool = False, *,
     is below the distance from the point to the outside of the searched square, the
     least distance any unseen point can have (Grassberger 1990; Schreiber 1995).
     Among equally near points the smallest index is returned. When a pilot search
-    over 256 points needs more than 60 box visits and distance evaluations per point
-    (or the full search more than 120), ``scipy.spatial.cKDTree`` answers instead
+    over 256 points needs more than 100 box visits and distance evaluations per point
+    (or the full search more than 200), ``scipy.spatial.cKDTree`` answers instead
     (its ties may resolve to another of the equally near points).
 
     A caller that needs only a count over the answers (e.g. whether the fraction
