@@ -95,69 +95,84 @@ def _box_gap(v, c, b, origin, eps):  # pragma: no cover - compiled
 
 
 @njit(cache=True, nogil=True)
+def _query(pts, cx, cy, orig, start, m0, m1, x0, y0, eps, maxnorm, nonzero,
+           q):  # pragma: no cover - compiled
+    """Nearest other point of sorted point ``q``: (best distance, squared for the
+    Euclidean norm; its sorted index or -1; box visits plus distances evaluated)."""
+    safe = 1.0 - 1e-9  # lower bounds are shrunk against rounding at box edges
+    by_z = pts.shape[1] >= 3  # boxes are sorted by the third coordinate
+    work = 0
+    qx, qy = pts[q, 0], pts[q, 1]
+    c0, c1 = cx[q], cy[q]
+    best = np.inf
+    best_j = -1
+    r = 0
+    while True:
+        lo1, hi1 = max(c1 - r, 0), min(c1 + r, m1 - 1)
+        for bx in range(max(c0 - r, 0), min(c0 + r, m0 - 1) + 1):
+            gx = _box_gap(qx, c0, bx, x0, eps) * safe
+            edge = bx == c0 - r or bx == c0 + r
+            by = lo1
+            while by <= hi1:
+                if not edge and by != c1 - r and by != c1 + r:
+                    by = c1 + r  # skip the shell's interior
+                    continue
+                work += 1
+                gy = _box_gap(qy, c1, by, y0, eps) * safe
+                lb = max(gx, gy) if maxnorm else gx * gx + gy * gy
+                if lb <= best:
+                    if by_z:
+                        best, best_j, seen = _scan_box_z(pts, orig, start, bx * m1 + by,
+                                                         q, maxnorm, nonzero, best, best_j)
+                    else:
+                        best, best_j, seen = _scan_box(pts, orig, start, bx * m1 + by, q,
+                                                       maxnorm, nonzero, best, best_j)
+                    work += seen
+                by += 1
+        # Points outside the searched square of boxes lie beyond one of its sides.
+        reach = np.inf
+        if c0 - r > 0:
+            reach = min(reach, qx - (x0 + (c0 - r) * eps))
+        if c0 + r < m0 - 1:
+            reach = min(reach, (x0 + (c0 + r + 1) * eps) - qx)
+        if c1 - r > 0:
+            reach = min(reach, qy - (y0 + (c1 - r) * eps))
+        if c1 + r < m1 - 1:
+            reach = min(reach, (y0 + (c1 + r + 1) * eps) - qy)
+        if reach == np.inf:
+            return best, best_j, work  # the square covers the whole grid
+        reach *= safe
+        if best_j >= 0 and best < (reach if maxnorm else reach * reach):
+            return best, best_j, work
+        r += 1
+
+
+@njit(cache=True, nogil=True)
 def _search(pts, cx, cy, orig, start, m0, m1, x0, y0, eps, maxnorm, nonzero, lo, hi, step,
-            out_idx, out_dist, work_per_query):  # pragma: no cover - compiled
-    """Nearest other point of points ``lo, lo + step, ... < hi``; the work done, -1 over budget.
+            block, out_idx, out_dist, work_per_query):  # pragma: no cover - compiled
+    """Nearest other point of the sorted points ``b, ..., b + block - 1`` for
+    ``b = lo, lo + step, ... < hi`` (none at or past ``hi``); the work done, -1 over budget.
 
     ``pts`` (n, d) are sorted by box, ``cx``, ``cy`` (n,) their box coordinates
     (``m0`` x ``m1`` boxes of side ``eps`` from the origin ``x0, y0``), ``orig``
     (n,) their original indices; ``start`` (m0 * m1 + 1,) the first sorted point of every box.
-    Queries run in box order, so that consecutive queries read the same boxes.
+    Queries run in box order, so that consecutive queries read the same boxes; the
+    boxes at ring ``r = 0, 1, ...`` around a query's own are searched until no
+    unseen box can hold a nearer point (see :func:`_query`).
     Euclidean distances are compared squared.
     """
-    safe = 1.0 - 1e-9  # lower bounds are shrunk against rounding at box edges
-    by_z = pts.shape[1] >= 3  # boxes are sorted by the third coordinate
     work = 0
     budget = 20000
-    for q in range(lo, hi, step):
-        budget += work_per_query
-        qx, qy = pts[q, 0], pts[q, 1]
-        c0, c1 = cx[q], cy[q]
-        best = np.inf
-        best_j = -1
-        r = 0
-        while True:
-            lo1, hi1 = max(c1 - r, 0), min(c1 + r, m1 - 1)
-            for bx in range(max(c0 - r, 0), min(c0 + r, m0 - 1) + 1):
-                gx = _box_gap(qx, c0, bx, x0, eps) * safe
-                edge = bx == c0 - r or bx == c0 + r
-                by = lo1
-                while by <= hi1:
-                    if not edge and by != c1 - r and by != c1 + r:
-                        by = c1 + r  # skip the shell's interior
-                        continue
-                    work += 1
-                    gy = _box_gap(qy, c1, by, y0, eps) * safe
-                    lb = max(gx, gy) if maxnorm else gx * gx + gy * gy
-                    if lb <= best:
-                        if by_z:
-                            best, best_j, seen = _scan_box_z(pts, orig, start, bx * m1 + by,
-                                                             q, maxnorm, nonzero, best, best_j)
-                        else:
-                            best, best_j, seen = _scan_box(pts, orig, start, bx * m1 + by, q,
-                                                           maxnorm, nonzero, best, best_j)
-                        work += seen
-                    by += 1
-            # Points outside the searched square of boxes lie beyond one of its sides.
-            reach = np.inf
-            if c0 - r > 0:
-                reach = min(reach, qx - (x0 + (c0 - r) * eps))
-            if c0 + r < m0 - 1:
-                reach = min(reach, (x0 + (c0 + r + 1) * eps) - qx)
-            if c1 - r > 0:
-                reach = min(reach, qy - (y0 + (c1 - r) * eps))
-            if c1 + r < m1 - 1:
-                reach = min(reach, (y0 + (c1 + r + 1) * eps) - qy)
-            if reach == np.inf:
-                break  # the square covers the whole grid
-            reach *= safe
-            if best_j >= 0 and best < (reach if maxnorm else reach * reach):
-                break
-            r += 1
-        if work > budget:
-            return -1
-        out_idx[orig[q]] = orig[best_j] if best_j >= 0 else -1
-        out_dist[orig[q]] = best if maxnorm else math.sqrt(best)
+    for b in range(lo, hi, step):
+        for q in range(b, min(b + block, hi)):
+            budget += work_per_query
+            best, best_j, done = _query(pts, cx, cy, orig, start, m0, m1, x0, y0, eps,
+                                        maxnorm, nonzero, q)
+            work += done
+            if work > budget:
+                return -1
+            out_idx[orig[q]] = orig[best_j] if best_j >= 0 else -1
+            out_dist[orig[q]] = best if maxnorm else math.sqrt(best)
     return work
 
 

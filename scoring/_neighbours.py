@@ -49,6 +49,9 @@ _PARALLEL_FROM = 4000
 _CHUNKS_PER_THREAD = 4
 #: Points per chunk at most when a caller may stop the search early (see nearest_other).
 _STOP_CHUNK = 256
+#: Consecutive points (in box order) per block of such a chunk: a chunk is every
+#: k-th block, an even sample of the set whose queries still read the same boxes.
+_STOP_BLOCK = 16
 #: Runs of consecutive points the k-d tree then answers in (one query call each).
 _KDTREE_RUNS = 4
 
@@ -189,16 +192,18 @@ def nearest_other(points: np.ndarray, p: float = 2.0, nonzero: bool = False, *,
     is below the distance from the point to the outside of the searched square, the
     least distance any unseen point can have (Grassberger 1990; Schreiber 1995).
     Among equally near points the smallest index is returned. When a pilot search
-    over 256 points needs more than 100 box visits and distance evaluations per point
-    (or the full search more than 200), ``scipy.spatial.cKDTree`` answers instead
-    (its ties may resolve to another of the equally near points).
+    over 256 points (with ``stop``: the first chunk) needs more than 100 box visits
+    and distance evaluations per point (or the full search more than 200),
+    ``scipy.spatial.cKDTree`` answers instead (its ties may resolve to another of
+    the equally near points).
 
     A caller that needs only a count over the answers (e.g. whether the fraction
     of false neighbours reaches a level) passes ``stop``: the box search then
     answers the points in chunks of at most 256, each an evenly spread sample
-    (every ``k``-th point in box order; the k-d tree: four runs of consecutive
-    points), calls ``stop`` after each, and ends as soon as it returns True. The
-    sorted line (d = 1) answers all points at once and does not call it.
+    (every ``k``-th block of 16 consecutive points in box order; the k-d tree:
+    four runs of consecutive points), calls ``stop`` after each, and ends as soon
+    as it returns True. The sorted line (d = 1) answers all points at once and
+    does not call it.
 
     Parameters
     ----------
@@ -243,7 +248,9 @@ def nearest_other(points: np.ndarray, p: float = 2.0, nonzero: bool = False, *,
     if points.shape[1] == 1:
         idx = np.empty(n, dtype=np.int64)
         dist = np.empty(n)
-        order = np.argsort(points[:, 0], kind="stable")
+        # Any sort will do: the kernel breaks ties within a run of equal values by
+        # index itself (the stable sort took 0.32 ms for 5,000 values, quicksort 0.17).
+        order = np.argsort(points[:, 0])
         _nearest_1d(np.ascontiguousarray(points[order, 0]), order, nonzero, idx, dist)
         return idx, dist
     # Rows the boxes passed to stop before giving up are not passed again.
@@ -272,23 +279,56 @@ def _grid_nearest(points: np.ndarray, p: float, nonzero: bool, stop=None,
     idx = np.empty(n, dtype=np.int64)
     dist = np.empty(n)
     maxnorm = p == np.inf
-    # A pilot over about 256 evenly spread points estimates the work per point; boxes
-    # are not tried when the k-d tree would be cheaper.
-    step = max(1, n // _PILOT)
-    pilot = _search(pts, scx, scy, order, start, m0, m1, x0, y0, eps, maxnorm, nonzero,
-                    0, n, step, idx, dist, 1 << 40)
-    if pilot / len(range(0, n, step)) > _WORK_PER_QUERY:
-        return None
     threads = _threads() if n >= _PARALLEL_FROM else 1
     # Chunks taken in turn from a shared counter even out regions of unequal work; the
     # calling thread searches too, so one thread fewer is handed work. Without stop a
-    # chunk is a run of points in box order; with stop, every parts-th point, so that
-    # each chunk samples the whole set.
+    # chunk is a run of points in box order; with stop, every parts-th block of
+    # _STOP_BLOCK points in box order, so that each chunk samples the whole set while
+    # consecutive queries still read the same boxes.
     parts = 1 if threads == 1 else _CHUNKS_PER_THREAD * threads
+    block = 1
     if stop is not None:
         parts = max(parts, -(-n // _STOP_CHUNK))
+        block = _STOP_BLOCK
+
+    def chunk(part: int) -> tuple[int, int, int]:
+        """``lo, hi, step`` of a chunk's points in box order (see _search)."""
+        if stop is None:
+            return int(bounds[part]), int(bounds[part + 1]), 1
+        return part * block, n, parts * block
+
+    def search(part: int, budget: int) -> int:
+        lo, hi, step = chunk(part)
+        return _search(pts, scx, scy, order, start, m0, m1, x0, y0, eps, maxnorm, nonzero,
+                       lo, hi, step, block, idx, dist, budget)
+
+    def report(part: int) -> bool:
+        """Pass a searched chunk's rows to stop (under ``lock``); True: it said halt."""
+        lo, hi, step = chunk(part)
+        rows = order[_positions(lo, hi, step, block)]
+        reported[rows] = True
+        return bool(stop(rows, idx, dist))
+
+    # A pilot search estimates the work per point; boxes are not tried when the k-d
+    # tree would be cheaper. With stop the pilot is the first chunk (its answers
+    # count); without, about 256 evenly spread points.
+    if stop is not None:
+        lo, hi, step = chunk(0)
+        pilot = search(0, 1 << 40)
+        pilot_points = _positions(lo, hi, step, block).size
+        if report(0):
+            return _HALTED
+        first_part = 1
+    else:
+        step = max(1, n // _PILOT)
+        pilot = _search(pts, scx, scy, order, start, m0, m1, x0, y0, eps, maxnorm, nonzero,
+                        0, n, step, 1, idx, dist, 1 << 40)
+        pilot_points = len(range(0, n, step))
+        first_part = 0
+    if pilot / pilot_points > _WORK_PER_QUERY:
+        return None
     bounds = np.linspace(0, n, parts + 1).astype(np.int64)
-    chunks = iter(range(parts))
+    chunks = iter(range(first_part, parts))
     lock = threading.Lock()
     failed = threading.Event()
     halted = threading.Event()
@@ -299,20 +339,12 @@ def _grid_nearest(points: np.ndarray, p: float, nonzero: bool, stop=None,
                 part = next(chunks, None)
             if part is None:
                 return
-            if stop is None:
-                lo, hi, step = int(bounds[part]), int(bounds[part + 1]), 1
-            else:
-                lo, hi, step = part, n, parts
-            if _search(pts, scx, scy, order, start, m0, m1, x0, y0, eps, maxnorm, nonzero,
-                       lo, hi, step, idx, dist, 2 * _WORK_PER_QUERY) < 0:
+            if search(part, 2 * _WORK_PER_QUERY) < 0:
                 failed.set()
             elif stop is not None:
-                rows = order[lo:hi:step]
                 with lock:
-                    if not halted.is_set():
-                        reported[rows] = True
-                        if stop(rows, idx, dist):
-                            halted.set()
+                    if not halted.is_set() and report(part):
+                        halted.set()
 
     helpers = [_pool(threads).submit(work) for _ in range(threads - 1)]
     work()
@@ -325,3 +357,10 @@ def _grid_nearest(points: np.ndarray, p: float, nonzero: bool, stop=None,
     if failed.is_set():
         return None
     return _HALTED if halted.is_set() else (idx, dist)
+
+
+def _positions(lo: int, hi: int, step: int, block: int) -> np.ndarray:
+    """Positions ``b, ..., b + block - 1`` for ``b = lo, lo + step, ... < hi``, those
+    below ``hi`` (the queries of :func:`_search`), in its order."""
+    pos = (np.arange(lo, hi, step)[:, None] + np.arange(block)).ravel()
+    return pos[pos < hi]

@@ -71,6 +71,20 @@ def test_quantised_points_with_many_ties_and_duplicates(p, nonzero):
         check(points, p, nonzero)
 
 
+@pytest.mark.parametrize("nonzero", [False, True])
+def test_ties_on_a_line_go_to_the_smallest_index(nonzero):
+    """One dimension, values on a grid of quarters (differences exact in binary): the
+    answer is the smallest index among all equally near points, whatever order the
+    sort leaves equal values in (brute force over the full distance matrix)."""
+    rng = np.random.default_rng(17)
+    points = rng.integers(-12, 13, size=(800, 1)) / 4.0
+    idx, dist = nearest_other(points, nonzero=nonzero)
+    dmat = distance_matrix(points, 2.0, nonzero)
+    ref = dmat.min(axis=1)
+    np.testing.assert_array_equal(dist, ref)
+    np.testing.assert_array_equal(idx, np.argmax(dmat == ref[:, None], axis=1))
+
+
 @pytest.mark.parametrize("p", [2.0, np.inf])
 def test_thin_set_delay_vectors_and_noise(p):
     rng = np.random.default_rng(11)
@@ -191,7 +205,7 @@ def test_stop_ends_the_search():
 
 def test_stop_with_the_kd_tree(monkeypatch):
     """Where the boxes do not pay, the k-d tree answers in runs and honours stop; rows
-    the boxes already passed to stop are not passed again."""
+    the boxes already passed to stop (their pilot) are not passed again."""
     monkeypatch.setattr(_neighbours, "_WORK_PER_QUERY", 0)
     rng = np.random.default_rng(43)
     points = rng.standard_normal((4000, 4))
@@ -199,8 +213,11 @@ def test_stop_with_the_kd_tree(monkeypatch):
     stop, calls = _recorder()
     _idx, dist = nearest_other(points, stop=stop)
     np.testing.assert_allclose(dist, ref[:, 1], rtol=1e-12)
-    assert len(calls) == _neighbours._KDTREE_RUNS
-    np.testing.assert_array_equal(np.concatenate([c[0] for c in calls]), np.arange(4000))
+    # the boxes' pilot (their first chunk) is passed first, then the tree's runs
+    assert len(calls) == 1 + _neighbours._KDTREE_RUNS
+    assert 0 < len(calls[0][0]) <= _neighbours._STOP_CHUNK
+    np.testing.assert_array_equal(np.sort(np.concatenate([c[0] for c in calls])),
+                                  np.arange(4000))
     stop, calls = _recorder(halt_after=1)
     assert nearest_other(points, stop=stop) is None and len(calls) == 1
     reported = np.zeros(4000, dtype=bool)
