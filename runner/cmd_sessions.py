@@ -6,7 +6,10 @@ and gaps), then a stream-health table with one row per stream: samples,
 effective rate (samples − 1 over the first-to-last span) against the nominal
 rate, and gaps (silences longer than ``--gap-factor`` nominal periods), and,
 for sessions led by a ZeroMQ robot bridge, a bridge-timing table (meta
-``bridge_timing``: commands the bridge applied late or slipped).
+``bridge_timing``: commands the bridge applied late or slipped). The ``scores``
+column gives the stored score records and the day they were written; records
+written by an earlier echoreo that lack fields of the current record are shown
+as "score again", since ``echoreo score FILE`` replaces them with complete ones.
 Opening a file that a crashed recorder left ``running`` marks it ``interrupted`` (see
 :mod:`echoreo.sessionfile`); files that are not session files are listed with
 the reason instead of stopping the listing.
@@ -24,6 +27,7 @@ from rich.markup import escape
 from rich.table import Table
 
 from echoreo.errors import InputError, Problem, SessionFileError
+from echoreo.scoring.record_fields import missing_fields
 from echoreo.sessionfile import SessionFile
 
 __all__ = ["add_arguments", "run"]
@@ -69,6 +73,22 @@ def _plan_text(meta: dict) -> str:
     return f"{plan_name}: {text}" if plan_name else text
 
 
+def _scores_text(scores) -> tuple[str, list[str]]:
+    """The ``scores`` cell of a session and the record fields its stored scores lack.
+
+    ``scores`` is ``SessionFile.scores()``: "-" when empty, else the number of records
+    and the UTC day of the latest ``scored_utc``, "score again" when records lack fields.
+    """
+    if not len(scores):
+        return "-", []
+    stamps = sorted(str(v) for v in scores["scored_utc"] if v)
+    day = f" ({stamps[-1][:10]})" if stamps else ""
+    missing = missing_fields(r if isinstance(r, dict) else {} for r in scores["record"])
+    if missing:
+        return f"[yellow]{len(scores)}{day}, score again[/]", missing
+    return f"{len(scores)}{day}", []
+
+
 def _timing_row(table: Table, name: str, entry: object) -> None:
     """One row of the bridge-timing table from meta ``bridge_timing`` (absent: no row).
 
@@ -108,7 +128,7 @@ def run(args: argparse.Namespace, console: Console) -> int:
         return 0
     table = Table(title=f"sessions in {escape(str(folder))}")
     for col in ("file", "study", "participant", "plan / choreographies", "duration", "state",
-                "streams"):
+                "streams", "scores"):
         table.add_column(col, overflow="fold")
     health = Table(title="stream health")
     for col, justify in (("file", "left"), ("stream", "left"), ("kind", "left"),
@@ -120,6 +140,7 @@ def run(args: argparse.Namespace, console: Console) -> int:
     for col in ("file", "late", "slipped", "late ACKs", "max late ms", "bridge boots"):
         timing.add_column(col, justify="left" if col == "file" else "right", overflow="fold")
     counts: dict[str, int] = {}
+    stale: dict[str, list[str]] = {}  # file -> record fields its stored scores lack
     for path in files:
         name = escape(str(path.relative_to(folder)))
         try:
@@ -130,10 +151,13 @@ def run(args: argparse.Namespace, console: Console) -> int:
                 note = " (marked now)" if sf.marked_interrupted else ""
                 h = sf.stream_health(args.gap_factor)
                 n_gaps = int(h["gaps"].sum()) if len(h) else 0
+                scores, missing = _scores_text(sf.scores())
+                if missing:
+                    stale[str(path)] = missing
                 table.add_row(name, escape(sf.study or "-"), escape(sf.participant or "-"),
                               escape(_plan_text(sf.meta)), _fmt_duration(sf.duration()),
                               f"[{style}]{state}{note}[/]",
-                              f"{len(h)}, {n_gaps} gap{'s' if n_gaps != 1 else ''}")
+                              f"{len(h)}, {n_gaps} gap{'s' if n_gaps != 1 else ''}", scores)
                 for i, r in enumerate(h.itertuples(index=False)):
                     eff = f"{r.effective_hz:.1f}" if math.isfinite(r.effective_hz) else "-"
                     nom = f"{r.rate_hz:g}" if math.isfinite(r.rate_hz) else "?"
@@ -147,7 +171,7 @@ def run(args: argparse.Namespace, console: Console) -> int:
         except SessionFileError as exc:
             state = "unreadable"
             table.add_row(name, "-", "-", "-", "-", "[red]unreadable[/]",
-                          escape(exc.problems[0].message))
+                          escape(exc.problems[0].message), "-")
         counts[state] = counts.get(state, 0) + 1
     console.print(table)
     if health.row_count:
@@ -155,4 +179,11 @@ def run(args: argparse.Namespace, console: Console) -> int:
     if timing.row_count:
         console.print(timing)
     console.print(", ".join(f"{n} {s}" for s, n in sorted(counts.items())))
+    if stale:
+        fields = sorted({f for m in stale.values() for f in m})
+        console.print(f"[yellow]{len(stale)} session file{'s' if len(stale) != 1 else ''} "
+                      f"hold{'s' if len(stale) == 1 else ''} scores from an earlier echoreo "
+                      f"without {', '.join(escape(f) for f in fields)}[/] (\"score again\" "
+                      f"above); score the study's sessions again together, so that they "
+                      f"share one embedding: echoreo score {escape(str(folder))}")
     return 0

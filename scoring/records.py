@@ -25,19 +25,11 @@ from echoreo.scoring.grade import (
     still_grade,
 )
 from echoreo.scoring.params import ScoringParams
+from echoreo.scoring.record_fields import RECORD_FIELDS
 from echoreo.scoring.session_data import SessionData
 
 __all__ = ["RECORD_FIELDS"]
 
-#: the score-record fields, in order (DEVELOPERS.md, "Score records")
-RECORD_FIELDS: tuple[str, ...] = (
-    "session", "participant", "study", "stream", "kind", "site", "leader_site",
-    "choreography", "move", "step", "repetition", "t_start", "t_end", "lag_s",
-    "median_ratio", "iqr_ratio", "wasserstein", "shape_distance", "crqa_RR", "crqa_DET",
-    "crqa_L", "crqa_Lmax", "crqa_ENTR", "crqa_LAM", "crqa_TT", "correlation", "variability",
-    "grade", "band", "flags", "delay", "dim", "signal", "rate_hz", "filter_cutoff_hz",
-    "filter_order",
-)
 _METRICS = ("median_ratio", "iqr_ratio", "wasserstein", "shape_distance", "crqa_RR",
             "crqa_DET", "crqa_L", "crqa_Lmax", "crqa_ENTR", "crqa_LAM", "crqa_TT",
             "correlation")

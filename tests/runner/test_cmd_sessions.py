@@ -9,6 +9,8 @@ import sys
 import numpy as np
 
 from echoreo.runner.recorder import Recorder
+from echoreo.scoring.record_fields import RECORD_FIELDS
+from echoreo.sessionfile import write_scores
 
 CRASHING_CHILD = r"""
 import os, sys
@@ -88,3 +90,31 @@ def test_bridge_timing_table(tmp_path):
     assert rows["B03.sqlite"][0] == "unreadable"
     assert "B02.sqlite" not in rows
     assert "bridge timing" in out.stdout
+
+
+def test_scores_column_and_scores_from_an_earlier_version(tmp_path):
+    """The scores column counts the stored records and gives the day they were written;
+    records without a field of the current record (here ``correlation``, as scores
+    written before it existed) are marked "score again" and a hint names the field.
+    Expected values: the records and ``scored_utc`` written here."""
+    full = dict.fromkeys(RECORD_FIELDS, 1.0)
+    full.update(stream="right_wrist_imu", move="wave", step=0, repetition=1, grade=80.0,
+                band="close", flags=[])
+    old = {k: v for k, v in full.items() if k != "correlation"}
+    for code, recs in (("S01", [full, {**full, "repetition": 2}]), ("S02", [old]),
+                       ("S03", None)):
+        rec = Recorder(tmp_path / f"{code}.sqlite", {"study": "pilot", "participant": code})
+        rec.close()
+        if recs is not None:
+            write_scores(tmp_path / f"{code}.sqlite", recs, scored_utc="2026-11-30T09:15:00Z")
+    out = _cli("sessions", str(tmp_path))
+    assert out.returncode == 0, out.stderr
+    rows = {c[0]: c[-1] for c in ([x.strip() for x in line.split("│")[1:-1]]
+                                  for line in out.stdout.splitlines()
+                                  if line.count("│") == 9)}
+    assert rows["S01.sqlite"] == "2 (2026-11-30)"
+    assert rows["S02.sqlite"] == "1 (2026-11-30), score again"
+    assert rows["S03.sqlite"] == "-"
+    hint = " ".join(out.stdout.split())
+    assert "1 session file holds scores from an earlier echoreo without correlation" in hint
+    assert hint.endswith(f"echoreo score {tmp_path}")
