@@ -290,6 +290,7 @@ def _grid_nearest(points: np.ndarray, p: float, nonzero: bool, stop=None,
     if stop is not None:
         parts = max(parts, -(-n // _STOP_CHUNK))
         block = _STOP_BLOCK
+    bounds = np.linspace(0, n, parts + 1).astype(np.int64)  # the runs without stop
 
     def chunk(part: int) -> tuple[int, int, int]:
         """``lo, hi, step`` of a chunk's points in box order (see _search)."""
@@ -313,9 +314,8 @@ def _grid_nearest(points: np.ndarray, p: float, nonzero: bool, stop=None,
     # tree would be cheaper. With stop the pilot is the first chunk (its answers
     # count); without, about 256 evenly spread points.
     if stop is not None:
-        lo, hi, step = chunk(0)
         pilot = search(0, 1 << 40)
-        pilot_points = _positions(lo, hi, step, block).size
+        pilot_points = _positions(*chunk(0), block).size
         if report(0):
             return _HALTED
         first_part = 1
@@ -327,7 +327,6 @@ def _grid_nearest(points: np.ndarray, p: float, nonzero: bool, stop=None,
         first_part = 0
     if pilot / pilot_points > _WORK_PER_QUERY:
         return None
-    bounds = np.linspace(0, n, parts + 1).astype(np.int64)
     chunks = iter(range(first_part, parts))
     lock = threading.Lock()
     failed = threading.Event()
