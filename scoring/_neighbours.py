@@ -298,8 +298,8 @@ def _grid_nearest(points: np.ndarray, p: float, nonzero: bool, stop=None,
             return int(bounds[part]), int(bounds[part + 1]), 1
         return part * block, n, parts * block
 
-    def search(part: int, budget: int) -> int:
-        lo, hi, step = chunk(part)
+    def search(lo: int, hi: int, step: int, block: int, budget: int) -> int:
+        """Answer the points of ``_search(lo, hi, step, block)``; its work, or -1."""
         return _search(pts, scx, scy, order, start, m0, m1, x0, y0, eps, maxnorm, nonzero,
                        lo, hi, step, block, idx, dist, budget)
 
@@ -314,15 +314,14 @@ def _grid_nearest(points: np.ndarray, p: float, nonzero: bool, stop=None,
     # tree would be cheaper. With stop the pilot is the first chunk (its answers
     # count); without, about 256 evenly spread points.
     if stop is not None:
-        pilot = search(0, 1 << 40)
+        pilot = search(*chunk(0), block, 1 << 40)
         pilot_points = _positions(*chunk(0), block).size
         if report(0):
             return _HALTED
         first_part = 1
     else:
         step = max(1, n // _PILOT)
-        pilot = _search(pts, scx, scy, order, start, m0, m1, x0, y0, eps, maxnorm, nonzero,
-                        0, n, step, 1, idx, dist, 1 << 40)
+        pilot = search(0, n, step, 1, 1 << 40)
         pilot_points = len(range(0, n, step))
         first_part = 0
     if pilot / pilot_points > _WORK_PER_QUERY:
@@ -338,7 +337,7 @@ def _grid_nearest(points: np.ndarray, p: float, nonzero: bool, stop=None,
                 part = next(chunks, None)
             if part is None:
                 return
-            if search(part, 2 * _WORK_PER_QUERY) < 0:
+            if search(*chunk(part), block, 2 * _WORK_PER_QUERY) < 0:
                 failed.set()
             elif stop is not None:
                 with lock:

@@ -28,7 +28,7 @@ from echoreo.scoring.params import ScoringParams
 from echoreo.scoring.record_fields import RECORD_FIELDS
 from echoreo.scoring.session_data import SessionData
 
-__all__ = ["RECORD_FIELDS"]
+__all__: list[str] = []  # RECORD_FIELDS is in record_fields.py
 
 _METRICS = ("median_ratio", "iqr_ratio", "wasserstein", "shape_distance", "crqa_RR",
             "crqa_DET", "crqa_L", "crqa_Lmax", "crqa_ENTR", "crqa_LAM", "crqa_TT",

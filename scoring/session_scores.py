@@ -50,7 +50,8 @@ from echoreo.scoring._preparation import (
 from echoreo.scoring.align import lagged_correlation
 from echoreo.scoring.metrics import compare_repetition
 from echoreo.scoring.params import EmbeddingChoice, ScoringParams, combine_choices
-from echoreo.scoring.records import RECORD_FIELDS, _base_record, _empty_detail, _Row, _second_pass
+from echoreo.scoring.record_fields import RECORD_FIELDS
+from echoreo.scoring.records import _base_record, _empty_detail, _Row, _second_pass
 from echoreo.scoring.reference import KIND_CHANNELS, KIND_SIGNAL
 from echoreo.scoring.session_data import (
     SessionData,
